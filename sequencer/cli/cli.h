@@ -1,0 +1,32 @@
+/* cli: the command line: one function per command, and the printing of
+ * diagnostics that only the CLI does. Not for plan logic (sequencer/). */
+#ifndef PRECESS_CLI_H
+#define PRECESS_CLI_H
+
+#include <stdio.h>
+#include "plan.h"
+
+/* Exit statuses (design: 0 ok, 1 runtime failure, 2 bad plan or usage,
+ * 3 interrupted, 4 hardware fault). */
+enum { CLI_OK = 0, CLI_FAILED = 1, CLI_USAGE = 2, CLI_INTERRUPTED = 3, CLI_FAULT = 4 };
+
+typedef struct {
+    const char *name;
+    int (*run)(int argc, char **argv);
+    const char *summary;        /* one line for `precess help` */
+    const char *usage;          /* the full text for `precess help NAME` */
+} cli_command;
+
+const cli_command *cli_commands(size_t *n);
+const cli_command *cli_find(const char *name);
+
+/* FILE:LINE:COL: error: TEXT, sorted, to f. */
+void cli_print_diags(FILE *f, diag_list *d);
+/* A usage error: prints the message and the command's usage line. */
+int cli_usage_error(const char *command, const char *fmt, ...)
+    __attribute__((format(printf, 2, 3)));
+
+int cmd_check(int argc, char **argv);
+int cmd_help(int argc, char **argv);
+
+#endif

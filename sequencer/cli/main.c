@@ -1,0 +1,97 @@
+/* main: precess's entry point: finds the command and runs it.
+ * Not for any command's own work (cmd_<name>.c). */
+#include "cli.h"
+
+#include <stdarg.h>
+#include <stdio.h>
+#include <string.h>
+
+static int cmd_later(int argc, char **argv) {
+    (void)argc;
+    fprintf(stderr, "precess: '%s' is not available in this version yet; "
+                    "see 'precess help'\n", argv[0]);
+    return CLI_USAGE;
+}
+
+static const cli_command commands[] = {
+    {"check", cmd_check, "check plans and rigs without touching hardware",
+     "usage: precess check [--json] FILE...\n"
+     "\n"
+     "Reads each plan or rig and reports every problem as FILE:LINE:COL: error: TEXT.\n"
+     "A plan's rig is read too. Prints a one-line summary of each valid file.\n"
+     "  --json   print one JSON document for a single FILE on stdout\n"
+     "Exit status: 0 when every file is valid, 2 otherwise.\n"},
+    {"preview", cmd_later, "show what a plan will do: currents, fields, pulses, time",
+     "usage: precess preview PLAN\n"},
+    {"run", cmd_later, "run a plan on the rig (or in simulation) and record every shot",
+     "usage: precess run PLAN [--out DIR] [--fast] [--yes]\n"},
+    {"resume", cmd_later, "finish an interrupted run", "usage: precess resume RUN\n"},
+    {"verify", cmd_later, "check that a run folder is whole", "usage: precess verify RUN\n"},
+    {"analyze", cmd_later, "reduce a run to spectra, fits and plots",
+     "usage: precess analyze RUN [--json]\n"},
+    {"calibrate", cmd_later, "write a corrected rig from a calibration run",
+     "usage: precess calibrate RUN --rig RIG\n"},
+    {"export", cmd_later, "export records as CSV or JCAMP-DX",
+     "usage: precess export RUN --to csv|jcamp [--shot N]\n"},
+    {"probe", cmd_later, "list what a rig's DAQ device offers", "usage: precess probe RIG\n"},
+    {"help", cmd_help, "show the commands, or one command's usage",
+     "usage: precess help [COMMAND]\n"},
+};
+
+const cli_command *cli_commands(size_t *n) {
+    *n = sizeof commands / sizeof commands[0];
+    return commands;
+}
+
+const cli_command *cli_find(const char *name) {
+    for (size_t i = 0; i < sizeof commands / sizeof commands[0]; i++)
+        if (strcmp(commands[i].name, name) == 0) return &commands[i];
+    return NULL;
+}
+
+int cli_usage_error(const char *command, const char *fmt, ...) {
+    va_list ap;
+    va_start(ap, fmt);
+    fprintf(stderr, "precess %s: ", command);
+    vfprintf(stderr, fmt, ap);
+    fputc('\n', stderr);
+    va_end(ap);
+    const cli_command *c = cli_find(command);
+    if (c) {
+        const char *nl = strchr(c->usage, '\n');
+        fprintf(stderr, "%.*s\n", nl ? (int)(nl - c->usage) : (int)strlen(c->usage), c->usage);
+    }
+    return CLI_USAGE;
+}
+
+void cli_print_diags(FILE *f, diag_list *d) {
+    static const char *const sev[] = {"error", "warning", "note"};
+    diag_sort(d);
+    for (size_t i = 0; i < d->n; i++) {
+        const diag *g = &d->items[i];
+        if (g->line > 0)
+            fprintf(f, "%s:%d:%d: %s: %s\n", g->file, g->line, g->col, sev[g->severity],
+                    g->message);
+        else
+            fprintf(f, "%s: %s: %s\n", g->file, sev[g->severity], g->message);
+    }
+}
+
+int main(int argc, char **argv) {
+    if (argc < 2) {
+        cmd_help(1, argv);
+        return CLI_USAGE;
+    }
+    if (strcmp(argv[1], "--version") == 0 || strcmp(argv[1], "version") == 0) {
+        printf("precess %s\n", PRECESS_VERSION);
+        return CLI_OK;
+    }
+    if (strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0)
+        return cmd_help(argc - 1, argv + 1);
+    const cli_command *c = cli_find(argv[1]);
+    if (!c) {
+        fprintf(stderr, "precess: unknown command '%s'; see 'precess help'\n", argv[1]);
+        return CLI_USAGE;
+    }
+    return c->run(argc - 1, argv + 1);
+}
