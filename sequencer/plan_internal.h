@@ -17,6 +17,12 @@ typedef struct {
 
 void plan_reader_init(plan_reader *r, plan *p, plan_scope *s, diag_list *d);
 
+/* Variables (plan_vars.c): vary and let. Return 0 or -1. */
+int plan_read_vary(plan_reader *r, plan *p, const plan_node *m);
+int plan_read_lets(plan_reader *r, plan_scope *s, plan *p, const plan_node *m);
+/* The sample (plan_sample.c); m may be NULL (no sample: nuclei [1H]). */
+int plan_read_sample(plan_reader *r, const plan_node *m, plan_sample *s);
+
 /* Steps (plan_steps.c): a list of steps into out. Returns 0 or -1. */
 int plan_read_steps(plan_reader *r, plan *p, const plan_node *list, const char *where,
                     plan_steps *out, int depth);

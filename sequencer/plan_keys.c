@@ -242,12 +242,13 @@ int plan_read_ref(plan_reader *r, const plan_node *n, const char *kind, int *out
     }
     const char *near = names ? diag_nearest(n->text, names, count) : NULL;
     const char *rig = r->rig && r->rig->name ? r->rig->name : "the rig";
+    const char *an = strchr("aeiou", kind[0]) ? "an" : "a";
     if (near)
-        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' is not a %s of rig %s; did you mean '%s'?",
-                 n->text, kind, rig, near);
+        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' is not %s %s of rig %s; did you mean '%s'?",
+                 n->text, an, kind, rig, near);
     else if (count == 0)
-        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' is not a %s of rig %s; it has no %ss",
-                 n->text, kind, rig, kind);
+        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' is not %s %s of rig %s; it has no %ss",
+                 n->text, an, kind, rig, kind);
     else {
         char list[512];
         size_t used = 0;
@@ -255,8 +256,8 @@ int plan_read_ref(plan_reader *r, const plan_node *n, const char *kind, int *out
         for (size_t i = 0; i < count && used < sizeof list; i++)
             used += (size_t)snprintf(list + used, sizeof list - used, "%s%s",
                                      i ? ", " : "", names[i]);
-        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' is not a %s of rig %s; its %ss are %s",
-                 n->text, kind, rig, kind, list);
+        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' is not %s %s of rig %s; its %ss are %s",
+                 n->text, an, kind, rig, kind, list);
     }
     return -1;
 }

@@ -18,6 +18,7 @@ typedef struct {
     size_t size;                /* nodes so far in the subtree */
     size_t cap;
     plan_node *pending_key;     /* mappings: key awaiting its value */
+    int discard;                /* the pending key was refused: drop its value */
 } frame;
 
 typedef struct {
@@ -57,25 +58,33 @@ static plan_loc at_offset(builder *b, size_t off) {
 
 static int add_item(builder *b, frame *f, plan_node *child, yaml_mark_t m) {
     plan_node *n = f->node;
-    if (n->kind == PN_MAP && !f->pending_key) {
+    (void)m;
+    if (n->kind == PN_MAP && !f->pending_key && !f->discard) {
+        /* A refused key is reported and its value dropped, so that reading
+         * goes on and every other error of the file is found too. */
         if (child->kind != PN_SCALAR) {
             diag_add(b->d, DIAG_ERROR, child->loc,
                      "a mapping key must be a plain word, not a %s",
                      child->kind == PN_MAP ? "mapping" : "list");
-            return -1;
+            f->discard = 1;
+            return 0;
         }
         for (size_t i = 0; i < n->n; i++) {
             if (strcmp(n->keys[i]->text, child->text) == 0) {
                 diag_add(b->d, DIAG_ERROR, child->loc,
-                         "duplicate key '%s' (first given at line %d)",
-                         child->text, n->keys[i]->loc.line);
-                return -1;
+                         "duplicate key '%s' (first given at line %d, column %d)",
+                         child->text, n->keys[i]->loc.line, n->keys[i]->loc.col);
+                f->discard = 1;
+                return 0;
             }
         }
         f->pending_key = child;
         return 0;
     }
-    (void)m;
+    if (f->discard) {
+        f->discard = 0;
+        return 0;
+    }
     if (n->n == f->cap) {
         size_t cap = f->cap ? f->cap * 2 : 8;
         n->items = arena_grow(b->a, n->items, f->cap * sizeof *n->items,
@@ -196,13 +205,25 @@ static int on_end(builder *b, yaml_event_t *ev, const unsigned char *anchor_name
 static void syntax_error(builder *b, yaml_parser_t *p) {
     plan_loc l;
     if (p->error == YAML_READER_ERROR) {
-        l = at_offset(b, p->problem_offset);
+        size_t off = p->problem_offset;
+        const char *what = p->problem ? p->problem : "unreadable text";
+        /* A broken multi-byte sequence is reported where it starts. */
+        if (strstr(what, "trailing") || strstr(what, "incomplete")) {
+            while (off > 0 && off < b->len && ((unsigned char)b->bytes[off] & 0xC0) != 0xC0)
+                off--;
+            if (off < b->len && ((unsigned char)b->bytes[off] & 0xC0) == 0xC0) {
+                diag_add(b->d, DIAG_ERROR, at_offset(b, off),
+                         "invalid UTF-8 sequence starting with byte 0x%02x; the file must "
+                         "be UTF-8 text", (unsigned char)b->bytes[off]);
+                return;
+            }
+        }
+        l = at_offset(b, off);
         if (p->problem_value != -1)
             diag_add(b->d, DIAG_ERROR, l, "%s (byte 0x%02x); the file must be UTF-8 text",
-                     p->problem ? p->problem : "unreadable text", p->problem_value & 0xff);
+                     what, p->problem_value & 0xff);
         else
-            diag_add(b->d, DIAG_ERROR, l, "%s; the file must be UTF-8 text",
-                     p->problem ? p->problem : "unreadable text");
+            diag_add(b->d, DIAG_ERROR, l, "%s; the file must be UTF-8 text", what);
         return;
     }
     if (p->error == YAML_MEMORY_ERROR) {
