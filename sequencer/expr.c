@@ -25,6 +25,7 @@ struct expr_node {
     size_t start;          /* where the subexpression begins */
     unsigned height;       /* 1 for a leaf */
     double number, scale, offset;   /* N_NUM: value = number * scale + offset */
+    size_t num_start, num_len;      /* N_NUM: the number's text, while parsing */
     units_dim dim;
     bool literal;          /* N_NUM written as a number: a sign folds into it */
     char *name;            /* N_VAR, copied into the arena */
@@ -187,6 +188,9 @@ static expr_node *parse_unit(parser *p, expr_node *n) {
                               ue.message);
         return parse_fail(p, start + sub, "%s", ue.message);
     }
+    /* Fold a power-of-ten scale into the written number: 5 uT is 5e-6. */
+    n->number = units_scale_text(p->s + n->num_start, n->num_len, n->scale);
+    n->scale = 1;
     p->pos = end;
     return n;
 }
@@ -213,6 +217,8 @@ static expr_node *parse_number(parser *p) {
     n->number = strtod(buf, NULL);
     if (!isfinite(n->number)) return parse_fail(p, start, "number out of range");
     n->scale = 1;
+    n->num_start = start;
+    n->num_len = i - start;
     n->literal = true;
     p->pos = i;
     return parse_unit(p, n);

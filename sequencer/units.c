@@ -320,9 +320,29 @@ int units_parse_quantity(const char *text, size_t len, units_qty *out,
             return -1;
         }
     }
-    out->value = number * scale + offset;
+    out->value = units_scale_text(text + start, nlen, scale) + offset;
     out->dim = dim;
     return 0;
+}
+
+double units_scale_text(const char *num, size_t len, double scale) {
+    char buf[96];
+    if (len >= 64) len = 63;
+    memcpy(buf, num, len);
+    buf[len] = '\0';
+    double plain = strtod(buf, NULL);
+    if (scale == 1 || !(scale > 0)) return plain * scale;
+    int k = (int)lround(log10(scale));
+    char pow10[16];
+    snprintf(pow10, sizeof pow10, "1e%d", k);
+    if (k < -30 || k > 30 || strtod(pow10, NULL) != scale) return plain * scale;
+    /* Split off an exponent already written ("1.5e-3") and add k to it. */
+    size_t m = 0;
+    while (m < len && buf[m] != 'e' && buf[m] != 'E') m++;
+    long e = m < len ? strtol(buf + m + 1, NULL, 10) : 0;
+    if (e < -400 || e > 400) return plain * scale;
+    snprintf(buf + m, sizeof buf - m, "e%ld", e + k);
+    return strtod(buf, NULL);
 }
 
 /* ---- describing and formatting ----------------------------------------- */

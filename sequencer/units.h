@@ -70,6 +70,11 @@ int units_parse_unit(const char *text, size_t len, double *scale, double *offset
 int units_parse_quantity(const char *text, size_t len, units_qty *out,
                          char *err, size_t errlen, size_t *errpos);
 
+/* The value of number text (len bytes, as "5", "1.5e-3") times scale, with
+ * the decimal exponent of scale folded into the text when scale is a power
+ * of ten, so that "5 uT" is the double nearest 5e-6, as a user expects. */
+double units_scale_text(const char *num, size_t len, double scale);
+
 /* "a time (s)", "a magnetic field (T)", "a frequency (Hz)", ...; an unnamed
  * dimension is described by its SI unit ("a quantity in kg m^2 s^-3").
  * Writes into buf and returns it. */

@@ -8,6 +8,7 @@
 #include <cmocka.h>
 
 #include <math.h>
+#include <stdlib.h>
 #include <string.h>
 
 #include "units.h"
@@ -74,6 +75,31 @@ static units_dim dim_pow_ok(units_dim d, int twice) {
 }
 
 /* ---- prefixes ------------------------------------------------------------ */
+
+/* A prefixed quantity is the double nearest its decimal value: "5 uT" is
+ * 5e-6 exactly as strtod reads "5e-6", not 5 * 1e-6 (one ulp off). */
+static void test_prefixed_quantity_is_nearest_double_of_its_decimal(void **state) {
+    (void)state;
+    static const struct { const char *text, *decimal; } cases[] = {
+        {"5 uT", "5e-6"},        {"0.1 ms", "0.1e-3"},   {"2.5 kHz", "2.5e3"},
+        {"1.5e-3 mT", "1.5e-6"}, {"-10 mV", "-10e-3"},   {"7 nT", "7e-9"},
+        {"3 uT/A", "3e-6"},      {"40 uT", "40e-6"},     {"0.3 pT", "0.3e-12"},
+    };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        units_qty q;
+        char err[128];
+        size_t at;
+        assert_int_equal(units_parse_quantity(cases[i].text, strlen(cases[i].text), &q, err,
+                                              sizeof err, &at), 0);
+        assert_true(q.value == strtod(cases[i].decimal, NULL));
+    }
+    /* Scales that are not powers of ten multiply: 2 min = 120 s, 90 deg = pi/2. */
+    units_qty q;
+    char err[128];
+    size_t at;
+    assert_int_equal(units_parse_quantity("2 min", 5, &q, err, sizeof err, &at), 0);
+    assert_true(q.value == 120.0);
+}
 
 static void test_every_prefix_has_its_si_value(void **state) {
     (void)state;
@@ -397,6 +423,7 @@ static void test_format_keeps_long_times_in_seconds_and_angles_in_degrees(void *
 int main(void) {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_every_prefix_has_its_si_value),
+        cmocka_unit_test(test_prefixed_quantity_is_nearest_double_of_its_decimal),
         cmocka_unit_test(test_micro_sign_variants_mean_micro),
         cmocka_unit_test(test_unit_symbol_is_matched_before_prefix),
         cmocka_unit_test(test_min_h_deg_degc_take_no_prefix),
