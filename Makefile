@@ -35,23 +35,26 @@ TEST_SRCS := $(wildcard tests/test_*.c)
 TEST_BINS := $(TEST_SRCS:tests/%.c=$(B)/tests/%)
 HEADERS := $(wildcard sequencer/*.h drivers/*.h analysis/*.h tests/*.h)
 
-.PHONY: all deps check test sanitize fuzz fuzz-deps demo install clean bench
+.PHONY: all deps check test sanitize fuzz fuzz-deps demo install clean bench clang-check
 all: $(B)/precess
 
 $(B)/%.o: %.c $(HEADERS)
 	@mkdir -p $(dir $@)
-	$(CC) $(ALL_CFLAGS) -c $< -o $@
+	@echo "  CC      $<"
+	@$(CC) $(ALL_CFLAGS) -c $< -o $@
 
 $(B)/libprecess.a: $(LIB_OBJS)
 	@rm -f $@
-	ar rcs $@ $^
+	@ar rcs $@ $^
 
 $(B)/precess: $(CLI_OBJS) $(B)/libprecess.a
-	$(CC) $(ALL_CFLAGS) -o $@ $(CLI_OBJS) $(B)/libprecess.a $(LIBS)
+	@echo "  LINK    $@"
+	@$(CC) $(ALL_CFLAGS) -o $@ $(CLI_OBJS) $(B)/libprecess.a $(LIBS)
 
 $(B)/tests/%: tests/%.c $(B)/libprecess.a $(HEADERS)
 	@mkdir -p $(dir $@)
-	$(CC) $(ALL_CFLAGS) $(shell pkg-config --cflags cmocka) -o $@ $< \
+	@echo "  TEST    $@"
+	@$(CC) $(ALL_CFLAGS) $(shell pkg-config --cflags cmocka) -o $@ $< \
 	  $(B)/libprecess.a $(LIBS) $(shell pkg-config --libs cmocka)
 
 # Install what is missing (as root), or say exactly what to run.
@@ -88,6 +91,11 @@ fuzz: fuzz-deps
 demo: deps
 	@$(MAKE) --no-print-directory $(B)/precess
 	@PRECESS=$(abspath $(B)/precess) sh plans/demo.sh
+
+# The same build with clang, warnings as errors (C11, -Wall -Wextra).
+clang-check: fuzz-deps
+	@$(MAKE) --no-print-directory B=build/clang CC=clang build/clang/precess \
+	  $(TEST_BINS:$(B)/%=build/clang/%)
 
 bench: $(B)/precess
 	@echo "no benchmarks yet"

@@ -1,5 +1,5 @@
-/* test_e2e: runs the end-to-end scripts (tests/e2e/*.sh) and the reference
- * checks (tests/ref/*.py, under Debian's /usr/bin/python3) as cmocka tests,
+/* test_e2e: runs the end-to-end scripts (tests/e2e/NAME.sh) and the reference
+ * checks (tests/ref/NAME.py, under Debian's /usr/bin/python3) as cmocka tests,
  * one test per script, so every group reports in one format.
  * Not a place for checks themselves: each script holds its own. */
 #include <dirent.h>
