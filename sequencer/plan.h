@@ -236,6 +236,8 @@ int plan_read_const(plan_reader *r, const plan_node *n, const char *key,
 /* A count: a plain non-negative integer, at least min. */
 int plan_read_count(plan_reader *r, const plan_node *n, const char *key,
                     int min, int *out);
+/* A seed: a plain whole number below 2^32. */
+int plan_read_seed(plan_reader *r, const plan_node *n, const char *key, unsigned long *out);
 int plan_read_bool(plan_reader *r, const plan_node *n, const char *key, bool *out);
 /* One of choices (NULL-terminated); *out its index. */
 int plan_read_choice(plan_reader *r, const plan_node *n, const char *key,

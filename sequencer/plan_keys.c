@@ -4,6 +4,8 @@
  * Not for what a particular key means (plan_read.c, rig_read.c). */
 #include "plan.h"
 
+#include <errno.h>
+#include <limits.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -165,21 +167,48 @@ int plan_read_const(plan_reader *r, const plan_node *n, const char *key,
     return 0;
 }
 
-int plan_read_count(plan_reader *r, const plan_node *n, const char *key,
-                    int min, int *out) {
+/* A plain whole number of at most 20 digits into *out; 0 or -1 (errors). */
+static int read_whole(plan_reader *r, const plan_node *n, const char *key,
+                      unsigned long long *out) {
     if (want_scalar(r, n, key)) return -1;
-    int ok = n->len > 0 && n->len <= 9 && !n->quoted;
+    int ok = n->len > 0 && !n->quoted;
     for (size_t i = 0; ok && i < n->len; i++) ok = n->text[i] >= '0' && n->text[i] <= '9';
     if (!ok) {
         diag_add(r->d, DIAG_ERROR, n->loc,
                  "'%s' is a count: a plain whole number such as 4, got '%s'", key, n->text);
         return -1;
     }
-    *out = atoi(n->text);
+    errno = 0;
+    *out = strtoull(n->text, NULL, 10);
+    if (errno || n->len > 20) *out = ULLONG_MAX;
+    return 0;
+}
+
+int plan_read_count(plan_reader *r, const plan_node *n, const char *key,
+                    int min, int *out) {
+    unsigned long long v;
+    if (read_whole(r, n, key, &v)) return -1;
+    if (v > INT_MAX) {
+        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' is at most %d, got %s", key, INT_MAX, n->text);
+        return -1;
+    }
+    *out = (int)v;
     if (*out < min) {
         diag_add(r->d, DIAG_ERROR, n->loc, "'%s' must be at least %d, got %d", key, min, *out);
         return -1;
     }
+    return 0;
+}
+
+int plan_read_seed(plan_reader *r, const plan_node *n, const char *key, unsigned long *out) {
+    unsigned long long v;
+    if (read_whole(r, n, key, &v)) return -1;
+    if (v > 4294967295ULL) {
+        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' is at most 4294967295 (32 bits), got %s", key,
+                 n->text);
+        return -1;
+    }
+    *out = (unsigned long)v;
     return 0;
 }
 

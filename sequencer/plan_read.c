@@ -254,9 +254,7 @@ static int read_options(plan_reader *r, plan *p, const plan_node *root) {
         p->order = (plan_order)word;
     }
     if ((v = plan_node_get(root, "seed"))) {
-        int seed = 0;
-        bad |= plan_read_count(r, v, "seed", 0, &seed);
-        p->seed = (unsigned long)seed;
+        bad |= plan_read_seed(r, v, "seed", &p->seed);
     } else if (p->order == ORDER_SHUFFLED) {
         diag_add(r->d, DIAG_ERROR, plan_node_get(root, "order")->loc,
                  "order: shuffled needs 'seed' (a whole number) so the order can be repeated");

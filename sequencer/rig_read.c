@@ -107,6 +107,17 @@ static int coil_geometry(plan_reader *r, const plan_node *m, rig_coil *c) {
     bad |= opt_const(r, m, "length", UNITS_LENGTH, &c->length, NULL) != 0;
     if (bad) return -1;
     if (positive(r, m, "radius", c->radius)) return -1;
+    if (c->helmholtz && plan_node_get(m, "length")) {
+        diag_add(r->d, DIAG_ERROR, plan_node_get(m, "length")->loc,
+                 "coil %s: a Helmholtz pair is given by turns and radius; 'length' does not "
+                 "apply", c->name);
+        return -1;
+    }
+    if (c->length < 0) {
+        diag_add(r->d, DIAG_ERROR, plan_node_get(m, "length")->loc,
+                 "coil %s: 'length' cannot be negative", c->name);
+        return -1;
+    }
     c->from_geometry = true;
     c->has_field_per_current = true;
     c->field_per_current = c->helmholtz

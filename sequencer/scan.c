@@ -49,42 +49,47 @@ int scan_var_values(const plan *p, const plan_var *v, double *out, diag_list *d)
     return 0;
 }
 
+/* The number of points, checked against the limit before anything is
+ * allocated; 0 with an error when there are too many. */
+static size_t count_points(const plan *p, diag_list *d) {
+    double npoints = p->nvars ? (double)p->vars[0].n : 1;
+    for (size_t i = 1; i < p->nvars; i++) {
+        if (p->combine == COMBINE_TOGETHER && p->vars[i].n != p->vars[0].n) {
+            diag_add(d, DIAG_ERROR, p->vars[i].loc, "combine: together needs lists of one "
+                     "length; '%s' has %zu values, not %zu", p->vars[i].name, p->vars[i].n,
+                     p->vars[0].n);
+            return 0;
+        }
+        if (p->combine == COMBINE_GRID) npoints *= (double)p->vars[i].n;
+    }
+    if (npoints > SCAN_MAX_SHOTS || npoints < 1) {
+        diag_add(d, DIAG_ERROR, p->nvars ? p->vars[0].loc : (plan_loc){p->file, 1, 1},
+                 "the scan has %.0f points; at most %u can be planned", npoints,
+                 SCAN_MAX_SHOTS);
+        return 0;
+    }
+    return (size_t)npoints;
+}
+
+static int out_of_memory(const plan *p, diag_list *d) {
+    diag_add(d, DIAG_ERROR, (plan_loc){p->file, 0, 0}, "out of memory expanding the scan");
+    return -1;
+}
+
 /* Points as written: grid (first variable slowest) or side by side. */
 static int fill_points(const plan *p, scan *s, diag_list *d) {
-    size_t nv = p->nvars;
+    size_t nv = p->nvars, npoints = count_points(p, d);
+    if (npoints == 0) return -1;
     double **vals = calloc(nv + 1, sizeof *vals);
-    if (!vals) return -1;
-    int rc = 0;
-    size_t npoints = 1;
+    s->values = malloc((npoints * nv + 1) * sizeof *s->values);
+    int rc = vals && s->values ? 0 : out_of_memory(p, d);
     for (size_t i = 0; i < nv && rc == 0; i++) {
         vals[i] = malloc((p->vars[i].n + 1) * sizeof **vals);
-        if (!vals[i] || scan_var_values(p, &p->vars[i], vals[i], d)) {
-            rc = -1;
-            break;
-        }
-        if (p->combine == COMBINE_TOGETHER) {
-            if (i > 0 && p->vars[i].n != npoints) {
-                diag_add(d, DIAG_ERROR, p->vars[i].loc, "combine: together needs lists of one "
-                         "length; '%s' has %zu values, not %zu", p->vars[i].name,
-                         p->vars[i].n, npoints);
-                rc = -1;
-            }
-            npoints = p->vars[i].n;
-        } else {
-            npoints *= p->vars[i].n;
-            if (npoints > SCAN_MAX_SHOTS) {
-                diag_add(d, DIAG_ERROR, p->vars[i].loc, "the scan has more than %u points",
-                         SCAN_MAX_SHOTS);
-                rc = -1;
-            }
-        }
+        if (!vals[i]) rc = out_of_memory(p, d);
+        else rc = scan_var_values(p, &p->vars[i], vals[i], d);
     }
-    if (rc == 0) {
-        s->npoints = npoints;
-        s->nvars = nv;
-        s->values = malloc((npoints * nv + 1) * sizeof *s->values);
-        if (!s->values) rc = -1;
-    }
+    s->npoints = npoints;
+    s->nvars = nv;
     for (size_t k = 0; rc == 0 && k < npoints; k++) {
         size_t rest = k;
         for (size_t i = nv; i-- > 0;) {
@@ -96,7 +101,7 @@ static int fill_points(const plan *p, scan *s, diag_list *d) {
             s->values[k * nv + i] = vals[i][idx];
         }
     }
-    for (size_t i = 0; i < nv; i++) free(vals[i]);
+    for (size_t i = 0; vals && i < nv; i++) free(vals[i]);
     free(vals);
     return rc;
 }
@@ -135,7 +140,7 @@ static int fill_shots(const plan *p, scan *s, diag_list *d) {
     uint32_t *order = point_order(p, s->npoints);
     if (!s->shots || !order) {
         free(order);
-        return -1;
+        return out_of_memory(p, d);
     }
     size_t k = 0;
     for (int w = 0; w < p->warmup; w++)
@@ -155,6 +160,7 @@ scan *scan_expand(const plan *p, diag_list *d) {
     scan *s = calloc(1, sizeof *s);
     if (!s) return NULL;
     s->reference = malloc((p->nvars + 1) * sizeof *s->reference);
+    if (!s->reference) out_of_memory(p, d);
     if (!s->reference || fill_points(p, s, d) || fill_shots(p, s, d)) {
         scan_free(s);
         return NULL;

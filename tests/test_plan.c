@@ -615,6 +615,46 @@ static void test_refuses_rig_variable_in_rig(void **state) {
     "7:145: error: 'max_power': a rig takes constants, not variables (undefined name 'x')\n");
 }
 
+static void test_refuses_seed_past_32_bits(void **state) {
+    (void)state;
+    expect_diags("version: 1\nrig: bench.yaml\norder: shuffled\nseed: 4294967296\n"
+                 "shot:\n  - wait: {for: 1 s}\n",
+                 "4:7: error: 'seed' is at most 4294967295 (32 bits), got 4294967296\n");
+}
+
+static void test_accepts_the_largest_seed(void **state) {
+    (void)state;
+    expect_diags("version: 1\nrig: bench.yaml\norder: shuffled\nseed: 4294967295\n"
+                 "shot:\n  - wait: {for: 1 s}\n", "");
+}
+
+static void test_refuses_a_count_past_int(void **state) {
+    (void)state;
+    expect_diags("version: 1\nrig: bench.yaml\naverages: 99999999999\n"
+                 "shot:\n  - wait: {for: 1 s}\n",
+                 "3:11: error: 'averages' is at most 2147483647, got 99999999999\n");
+}
+
+#define GEOMETRY_RIG                                                             \
+    "version: 1\nrig:\n  version: 1\n  name: inline\n  driver: sim\n  coils:\n" \
+    "    c: {output: 0, amps_per_volt: 1 A/V, max_current: 1 A, max_slew: 1 A/s, "   \
+    "resistance: 1 ohm, inductance: 1 mH, compliance: 5 V, "
+
+static void test_refuses_rig_negative_coil_length(void **state) {
+    (void)state;
+    expect_diags(GEOMETRY_RIG "turns: 10, radius: 1 cm, length: -5 cm}\n"
+                 "shot:\n  - wait: {for: 1 s}\n",
+                 "7:164: error: coil c: 'length' cannot be negative\n");
+}
+
+static void test_refuses_rig_helmholtz_with_length(void **state) {
+    (void)state;
+    expect_diags(GEOMETRY_RIG "turns: 10, radius: 1 cm, helmholtz: true, length: 5 cm}\n"
+                 "shot:\n  - wait: {for: 1 s}\n",
+                 "7:181: error: coil c: a Helmholtz pair is given by turns and radius; 'length' "
+                 "does not apply\n");
+}
+
 /* ---- bad input never crashes the reader ------------------------------ */
 
 static void expect_bytes(const char *bytes, size_t len, const char *expected) {
@@ -790,6 +830,11 @@ int main(void) {
         cmocka_unit_test(test_refuses_rig_sim_only_on_comedi),
         cmocka_unit_test(test_refuses_rig_unknown_coil_key),
         cmocka_unit_test(test_refuses_rig_variable_in_rig),
+        cmocka_unit_test(test_refuses_seed_past_32_bits),
+        cmocka_unit_test(test_accepts_the_largest_seed),
+        cmocka_unit_test(test_refuses_a_count_past_int),
+        cmocka_unit_test(test_refuses_rig_negative_coil_length),
+        cmocka_unit_test(test_refuses_rig_helmholtz_with_length),
         cmocka_unit_test(test_refuses_binary_junk),
         cmocka_unit_test(test_refuses_non_utf8_text),
         cmocka_unit_test(test_refuses_control_characters),
