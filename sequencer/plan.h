@@ -406,6 +406,7 @@ typedef struct {
     int retries;
     bool stop_on_fault;
     double max_duration;        /* 0: no limit */
+    plan_loc max_duration_loc;
     size_t nrest;
     plan_target *rest;
     plan_steps setup, teardown, shot;

@@ -275,6 +275,7 @@ static int read_options(plan_reader *r, plan *p, const plan_node *root) {
         if (plan_keys(r, v, "limits", limits_keys, NULL)) bad = 1;
         else if ((v = plan_node_get(v, "max_duration"))) {
             bad |= plan_read_const(r, v, "max_duration", UNITS_TIME, &p->max_duration);
+            p->max_duration_loc = v->loc;
             if (!bad && p->max_duration <= 0) {
                 diag_add(r->d, DIAG_ERROR, v->loc, "'max_duration' must be greater than zero");
                 bad = 1;

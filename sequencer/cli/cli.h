@@ -4,6 +4,7 @@
 #define PRECESS_CLI_H
 
 #include <stdio.h>
+#include "compile.h"
 #include "plan.h"
 
 /* Exit statuses (design: 0 ok, 1 runtime failure, 2 bad plan or usage,
@@ -20,13 +21,25 @@ typedef struct {
 const cli_command *cli_commands(size_t *n);
 const cli_command *cli_find(const char *name);
 
+/* Notes belong to the file checked: drop those of other files (a plan's
+ * rig reports its own when it is checked). */
+void cli_drop_foreign_notes(diag_list *d, const char *path);
 /* FILE:LINE:COL: error: TEXT, sorted, to f. */
 void cli_print_diags(FILE *f, diag_list *d);
 /* A usage error: prints the message and the command's usage line. */
 int cli_usage_error(const char *command, const char *fmt, ...)
     __attribute__((format(printf, 2, 3)));
 
+/* Draw shot number shot of c into path (.png or .svg) with PLplot (diagram.c).
+ * Returns 0, or -1 with a message in err. */
+int cli_draw_diagram(const compiled *c, uint32_t shot, const char *path, char *err,
+                     size_t errlen);
+
+/* A run's length for people: "45 s", "12 min 5 s", "3 h 02 min". */
+const char *cli_duration(double seconds, char *buf, size_t n);
+
 int cmd_check(int argc, char **argv);
+int cmd_preview(int argc, char **argv);
 int cmd_help(int argc, char **argv);
 
 #endif

@@ -43,21 +43,6 @@ static json_t *shot_order(const scan *s) {
     return a;
 }
 
-/* Notes are for the file checked; a plan's rig gives its own when checked. */
-static void drop_foreign_notes(diag_list *d, const char *path) {
-    size_t k = 0;
-    for (size_t i = 0; i < d->n; i++) {
-        diag *g = &d->items[i];
-        if (g->severity == DIAG_NOTE && strcmp(g->file, path) != 0) {
-            free(g->file);
-            free(g->message);
-            continue;
-        }
-        d->items[k++] = *g;
-    }
-    d->n = k;
-}
-
 /* Reads one file; fills *doc when json is wanted. Returns 0 when valid. */
 static int check_one(const char *path, int json, json_t **doc, diag_list *d) {
     int kind = plan_file_kind(path, d);
@@ -75,17 +60,22 @@ static int check_one(const char *path, int json, json_t **doc, diag_list *d) {
     if (kind == 1) {
         plan *p = plan_read_file(path, d);
         scan *s = p ? scan_expand(p, d) : NULL;
-        valid = s != NULL;
+        compiled *c = s ? compile_plan(p, s, d) : NULL;
+        valid = c != NULL;
+        char took[32];
+        if (c) units_format(c->duration, UNITS_TIME, took, sizeof took);
         if (valid && o) {
             json_object_set_new(o, "points", json_integer((json_int_t)s->npoints));
             json_object_set_new(o, "shots", json_integer((json_int_t)s->nshots));
+            json_object_set_new(o, "duration", json_real(c->duration));
             json_object_set_new(o, "point_list", point_list(p, s));
             json_object_set_new(o, "shot_order", shot_order(s));
         } else if (valid) {
-            printf("%s: ok: plan '%s' on rig %s: %zu point%s, %zu shot%s\n", path, p->title,
-                   p->rig.name, s->npoints, s->npoints == 1 ? "" : "s", s->nshots,
-                   s->nshots == 1 ? "" : "s");
+            printf("%s: ok: plan '%s' on rig %s: %zu point%s, %zu shot%s, %s\n", path,
+                   p->title, p->rig.name, s->npoints, s->npoints == 1 ? "" : "s", s->nshots,
+                   s->nshots == 1 ? "" : "s", cli_duration(c->duration, took, sizeof took));
         }
+        compile_free(c);
         scan_free(s);
         plan_free(p);
     } else if (kind == 2) {
@@ -101,7 +91,7 @@ static int check_one(const char *path, int json, json_t **doc, diag_list *d) {
         arena_free(a);
     }
     if (o) {
-        drop_foreign_notes(d, path);
+        cli_drop_foreign_notes(d, path);
         diag_sort(d);
         json_object_set_new(o, "valid", json_boolean(valid));
         json_object_set_new(o, "errors", diag_array(d, DIAG_ERROR));
@@ -130,7 +120,7 @@ int cmd_check(int argc, char **argv) {
         diag_init(&d);
         json_t *doc = NULL;
         if (check_one(argv[i], json, &doc, &d)) bad = 1;
-        drop_foreign_notes(&d, argv[i]);
+        cli_drop_foreign_notes(&d, argv[i]);
         cli_print_diags(stderr, &d);
         if (doc) {
             char *text = json_dumps(doc, JSON_PRESERVE_ORDER);

@@ -2,8 +2,10 @@
  * Not for any command's own work (cmd_<name>.c). */
 #include "cli.h"
 
+#include <math.h>
 #include <stdarg.h>
 #include <stdio.h>
+#include <stdlib.h>
 #include <string.h>
 
 static int cmd_later(int argc, char **argv) {
@@ -21,8 +23,17 @@ static const cli_command commands[] = {
      "A plan's rig is read too. Prints a one-line summary of each valid file.\n"
      "  --json   print one JSON document for a single FILE on stdout\n"
      "Exit status: 0 when every file is valid, 2 otherwise.\n"},
-    {"preview", cmd_later, "show what a plan will do: currents, fields, pulses, time",
-     "usage: precess preview PLAN\n"},
+    {"preview", cmd_preview, "show what a plan will do: currents, fields, pulses, time",
+     "usage: precess preview PLAN [--json] [--timeline N] [--diagram FILE.png|svg [--shot N]]\n"
+     "\n"
+     "Compiles the plan and prints a table of every point: scan values, coil currents,\n"
+     "fields at each place, the Larmor frequency, the first pulse and each nucleus'\n"
+     "tip angle, the shot length; then the total duration and the expected finish.\n"
+     "  --json          one JSON document with every shot instead\n"
+     "  --timeline N    shot N's steps and timed events\n"
+     "  --diagram FILE  draw a shot's timing diagram (PNG or SVG, by the extension)\n"
+     "  --shot N        the shot the diagram shows (default 1)\n"
+     "Exit status: 0 when the plan compiles, 2 otherwise.\n"},
     {"run", cmd_later, "run a plan on the rig (or in simulation) and record every shot",
      "usage: precess run PLAN [--out DIR] [--fast] [--yes]\n"},
     {"resume", cmd_later, "finish an interrupted run", "usage: precess resume RUN\n"},
@@ -62,6 +73,28 @@ int cli_usage_error(const char *command, const char *fmt, ...) {
         fprintf(stderr, "%.*s\n", nl ? (int)(nl - c->usage) : (int)strlen(c->usage), c->usage);
     }
     return CLI_USAGE;
+}
+
+const char *cli_duration(double seconds, char *buf, size_t n) {
+    long s = (long)ceil(seconds);
+    if (seconds < 60) snprintf(buf, n, "%.3g s", seconds);
+    else if (s < 3600) snprintf(buf, n, "%ld min %ld s", s / 60, s % 60);
+    else snprintf(buf, n, "%ld h %02ld min", s / 3600, s / 60 % 60);
+    return buf;
+}
+
+void cli_drop_foreign_notes(diag_list *d, const char *path) {
+    size_t k = 0;
+    for (size_t i = 0; i < d->n; i++) {
+        diag *g = &d->items[i];
+        if (g->severity == DIAG_NOTE && strcmp(g->file, path) != 0) {
+            free(g->file);
+            free(g->message);
+            continue;
+        }
+        d->items[k++] = *g;
+    }
+    d->n = k;
 }
 
 void cli_print_diags(FILE *f, diag_list *d) {

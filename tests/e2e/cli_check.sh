@@ -36,7 +36,7 @@ shot:
   - acquire: {for: 500 ms, rate: 5 kHz}
 PLAN
 $P check "$T/ok.yaml" >"$T/out" 2>"$T/err" || fail "valid plan refused: $(cat "$T/err")"
-[ "$(cat "$T/out")" = "$T/ok.yaml: ok: plan 'Two-field check' on rig test-bench: 2 points, 6 shots" ] \
+[ "$(cat "$T/out")" = "$T/ok.yaml: ok: plan 'Two-field check' on rig test-bench: 2 points, 6 shots, 9.18 s" ] \
     || fail "summary: $(cat "$T/out")"
 [ -s "$T/err" ] && fail "valid plan printed on stderr: $(cat "$T/err")"
 
@@ -91,5 +91,6 @@ $P check --json "$T/ok.yaml" "$T/bad.yaml" 2>/dev/null >/dev/null; [ $? = 2 ] \
 printf 'title: just a title\n' > "$T/neither.yaml"
 $P check "$T/neither.yaml" 2>"$T/err"; [ $? = 2 ] || fail "neither file exit"
 grep -q "neither a plan" "$T/err" || fail "neither file message"
-$P preview "$T/ok.yaml" 2>"$T/err"; [ $? = 2 ] || fail "preview not yet available must exit 2"
+$P run "$T/ok.yaml" 2>"$T/err"; [ $? = 2 ] || fail "run not yet available must exit 2"
+grep -q "not available in this version yet" "$T/err" || fail "run not yet available message"
 exit 0
