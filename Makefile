@@ -97,8 +97,18 @@ clang-check: fuzz-deps
 	@$(MAKE) --no-print-directory B=build/clang CC=clang build/clang/precess \
 	  $(TEST_BINS:$(B)/%=build/clang/%)
 
-bench: $(B)/precess
-	@echo "no benchmarks yet"
+BENCH_SRCS := $(wildcard bench/*.c)
+BENCH_BINS := $(BENCH_SRCS:bench/%.c=$(B)/bench/%)
+
+$(B)/bench/%: bench/%.c $(B)/libprecess.a $(HEADERS)
+	@mkdir -p $(dir $@)
+	@echo "  BENCH   $@"
+	@$(CC) $(ALL_CFLAGS) -o $@ $< $(B)/libprecess.a $(LIBS)
+
+# Speed and memory against their targets, with baselines measured in the
+# same run; never part of make check.
+bench: $(B)/precess $(BENCH_BINS)
+	@for b in $(BENCH_BINS); do $$b || exit 1; done
 
 install: $(B)/precess
 	install -d $(DESTDIR)$(PREFIX)/bin $(DESTDIR)$(PREFIX)/share/man/man1
