@@ -1,11 +1,26 @@
 #!/bin/sh
-# make demo: checks every example plan and the rig in simulation and prints
-# each one's summary. Later versions also preview, run and analyze a study.
+# make demo: checks every example plan and the rig in simulation, previews
+# each plan (a table of its points, its duration) and draws one shot's
+# timing diagram. Later versions also run and analyze a study.
 set -e
 cd "$(dirname "$0")"
 : "${PRECESS:=../build/precess}"
-echo "== precess $($PRECESS --version | cut -d' ' -f2): example plans (simulated rig)"
+out=${DEMO_OUT:-../build/demo}
+mkdir -p "$out"
+echo "== precess $($PRECESS --version | cut -d' ' -f2): example plans on the simulated bench"
 for f in rigs/*.yaml *.yaml; do
-    "$PRECESS" check "$f"
+    "$PRECESS" check "$f" 2>&1
 done
-echo "== all example plans are valid; try: build/precess check --json plans/t1-dispersion.yaml"
+for f in *.yaml; do
+    echo
+    echo "== precess preview plans/$f"
+    "$PRECESS" preview "$f" 2>&1
+done
+echo
+"$PRECESS" preview t1-dispersion.yaml --timeline 2
+echo
+"$PRECESS" preview t1-dispersion.yaml --diagram "$out/t1-dispersion-shot2.png" --shot 2
+"$PRECESS" preview t1-dispersion.yaml --diagram "$out/t1-dispersion-shot2.svg" --shot 2
+echo
+echo "== done. The timing diagram of shot 2 of the T1 dispersion study is in"
+echo "   $(cd "$out" && pwd)/t1-dispersion-shot2.png (and .svg)"
