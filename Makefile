@@ -69,7 +69,8 @@ check: deps
 	@$(MAKE) --no-print-directory test
 
 sanitize: deps
-	@$(MAKE) --no-print-directory B=build/asan \
+	@LSAN_OPTIONS=suppressions=$(abspath tests/lsan.supp):print_suppressions=0 \
+	  $(MAKE) --no-print-directory B=build/asan \
 	  EXTRA_CFLAGS="-fsanitize=address,undefined -fno-omit-frame-pointer -fno-sanitize-recover=undefined" \
 	  EXTRA_LIBS="-fsanitize=address,undefined" CFLAGS="-O1 -g" test
 

@@ -407,10 +407,10 @@ static int seal(compile_builder *b, compile_timeline *tl) {
     tl->acquisitions = arena_alloc(a, (b->naq + 1) * sizeof *tl->acquisitions);
     tl->steps = arena_alloc(a, (b->nst + 1) * sizeof *tl->steps);
     if (!tl->events || !tl->pulses || !tl->acquisitions || !tl->steps) return -1;
-    memcpy(tl->events, b->ev, b->nev * sizeof *b->ev);
-    memcpy(tl->pulses, b->pu, b->npu * sizeof *b->pu);
-    memcpy(tl->acquisitions, b->aq, b->naq * sizeof *b->aq);
-    memcpy(tl->steps, b->st, b->nst * sizeof *b->st);
+    if (b->nev) memcpy(tl->events, b->ev, b->nev * sizeof *b->ev);
+    if (b->npu) memcpy(tl->pulses, b->pu, b->npu * sizeof *b->pu);
+    if (b->naq) memcpy(tl->acquisitions, b->aq, b->naq * sizeof *b->aq);
+    if (b->nst) memcpy(tl->steps, b->st, b->nst * sizeof *b->st);
     size_t nn = b->p->sample.nnuclei;
     for (size_t i = 0; i < b->npu; i++) {
         compile_pulse *pu = &tl->pulses[i];
