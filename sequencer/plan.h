@@ -227,6 +227,9 @@ int plan_keys(plan_reader *r, const plan_node *n, const char *where,
               const char *const *known, const char *const *required);
 /* A scalar as text (labels, titles, paths); NULL with an error otherwise. */
 const char *plan_read_text(plan_reader *r, const plan_node *n, const char *key);
+/* A scalar parsed as an expression (not yet evaluated); NULL after an
+ * error (not a scalar, empty, a syntax error at its column). */
+expr_node *plan_read_expr(plan_reader *r, const plan_node *n, const char *key);
 /* A quantity or expression of dimension dim. Returns 0 or -1. */
 int plan_read_value(plan_reader *r, const plan_node *n, const char *key,
                     units_dim dim, plan_value *out);

@@ -113,20 +113,24 @@ static void wrong_dimension(plan_reader *r, const plan_node *n, const char *key,
         diag_add(r->d, DIAG_ERROR, n->loc, "'%s': expected %s, got %s", key, w, g);
 }
 
+expr_node *plan_read_expr(plan_reader *r, const plan_node *n, const char *key) {
+    if (want_scalar(r, n, key)) return NULL;
+    if (n->len == 0) {
+        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' needs a value", key);
+        return NULL;
+    }
+    expr_error err;
+    expr_node *e = expr_parse(r->a, n->text, n->len, &err);
+    if (!e) diag_add(r->d, DIAG_ERROR, plan_loc_in(n, err.pos), "'%s': %s", key, err.message);
+    return e;
+}
+
 int plan_read_value(plan_reader *r, const plan_node *n, const char *key,
                     units_dim dim, plan_value *out) {
     memset(out, 0, sizeof *out);
-    if (want_scalar(r, n, key)) return -1;
+    expr_node *e = plan_read_expr(r, n, key);
+    if (!e) return -1;
     expr_error err;
-    if (n->len == 0) {
-        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' needs a value", key);
-        return -1;
-    }
-    expr_node *e = expr_parse(r->a, n->text, n->len, &err);
-    if (!e) {
-        diag_add(r->d, DIAG_ERROR, plan_loc_in(n, err.pos), "'%s': %s", key, err.message);
-        return -1;
-    }
     units_qty q;
     expr_lookup_fn fn = r->lookup ? r->lookup : rig_lookup;
     if (expr_eval(e, fn, r->lookup_ctx, &q, &err)) {

@@ -134,15 +134,8 @@ static int const_reader_value(plan_reader *r, const plan_node *n, const char *ke
                               plan_value *out) {
     units_qty q;
     expr_error err;
-    if (n->kind != PN_SCALAR) {
-        diag_add(r->d, DIAG_ERROR, n->loc, "'%s' takes single values, got a collection", key);
-        return -1;
-    }
-    expr_node *e = expr_parse(r->a, n->text, n->len, &err);
-    if (!e) {
-        diag_add(r->d, DIAG_ERROR, plan_loc_in(n, err.pos), "'%s': %s", key, err.message);
-        return -1;
-    }
+    expr_node *e = plan_read_expr(r, n, key);
+    if (!e) return -1;
     if (!expr_is_constant(e)) {
         diag_add(r->d, DIAG_ERROR, n->loc,
                  "'%s': scan values must be constants (quantities, not variables)", key);
@@ -275,16 +268,15 @@ int plan_read_lets(plan_reader *r, plan_scope *s, plan *p, const plan_node *m) {
         }
         s->nlets = p->nlets;
         /* A let takes whatever dimension its expression has. */
-        if (v->kind != PN_SCALAR) {
-            diag_add(r->d, DIAG_ERROR, v->loc, "let %s takes a single value", k->text);
+        expr_error err;
+        units_qty q;
+        expr_node *e = plan_read_expr(r, v, k->text);
+        if (!e) {
             bad = 1;
             continue;
         }
-        expr_error err;
-        units_qty q;
-        expr_node *e = expr_parse(r->a, v->text, v->len, &err);
-        if (!e || expr_eval(e, r->lookup, s, &q, &err)) {
-            const char *near = e ? scope_suggest(s) : NULL;
+        if (expr_eval(e, r->lookup, s, &q, &err)) {
+            const char *near = scope_suggest(s);
             diag_add(r->d, DIAG_ERROR, plan_loc_in(v, err.pos), "let %s: %s%s%s%s", k->text,
                      err.message, near ? "; did you mean '" : "", near ? near : "",
                      near ? "'?" : "");
