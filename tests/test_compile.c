@@ -244,6 +244,59 @@ static void test_shots_follow_each_other_and_reference_shots_get_their_values(vo
     near(c->duration, 2.2, US);
 }
 
+/* ---- targets through the nuclei table and the detector ------------------- */
+
+static void test_larmor_target_sets_the_field_for_that_frequency(void **state) {
+    fixture *f = *state;
+    const compiled *c = compile_ok(f, "shot:\n"
+                                      "  - field: {sample: {larmor: 1 kHz}, sensor: 0 T}\n"
+                                      "  - acquire: {for: 10 ms, rate: 5 kHz}\n"
+                                      "  - field: {sample: {larmor: 200 Hz, nucleus: 13C}, "
+                                      "sensor: 0 T}\n"
+                                      "  - acquire: {for: 10 ms, rate: 5 kHz}\n");
+    /* |B| = 2 pi f / |gamma|. source: Larmor relation; gamma of 1H CODATA 2018, of 13C
+     * IUPAC 2001 (values from memory) */
+    near(c->timelines[0].fields[0], 2 * M_PI * 1000 / 2.6752218744e8, 1e-15);
+    near(c->timelines[0].frequency, 1000, 1e-9);
+    double b13c = 2 * M_PI * 200 / 6.728284e7;
+    /* The second field step (step 3) ramps main and bias to that field. */
+    double cur[4] = {0};
+    for (size_t k = 0; k < c->timelines[0].nevents; k++) {
+        const compile_event *e = &c->timelines[0].events[k];
+        if (e->step == 3 && e->kind == EV_RAMP) cur[e->channel] = e->to;
+    }
+    near(cur[1] * 120e-6 + cur[2] * 0.4e-6, b13c, 1e-15);
+}
+
+static void test_larmor_target_counts_the_transverse_residual(void **state) {
+    fixture *f = *state;
+    const compiled *c = try_compile(f, "tight-bench.yaml",
+                                    "shot:\n  - field: {sample: {larmor: 1 kHz}}\n"
+                                    "  - acquire: {for: 10 ms, rate: 5 kHz}\n");
+    assert_non_null(c);
+    double b = 2 * M_PI * 1000 / 2.6752218744e8;
+    near(c->timelines[0].fields[0], sqrt(b * b - 30e-9 * 30e-9), 1e-15);
+    near(c->timelines[0].frequency, 1000, 1e-9);
+}
+
+static void test_tune_sets_the_detector_resonance_to_the_signal(void **state) {
+    fixture *f = *state;
+    const compiled *c = compile_ok(f, "shot:\n"
+                                      "  - field: {sample: 10 uT, sensor: tune}\n"
+                                      "  - acquire: {for: 10 ms, rate: 5 kHz}\n");
+    /* f = |gamma| B / 2 pi of 1H at 10 uT; the sensor's field f / (7.0 Hz/nT). */
+    double signal = 2.6752218744e8 * 10e-6 / (2 * M_PI);
+    near(c->timelines[0].fields[1], signal / 7.0e9, 1e-16);
+}
+
+static void test_tune_to_a_frequency_uses_the_gyromagnetic_ratio(void **state) {
+    fixture *f = *state;
+    const compiled *c = compile_ok(f, "shot:\n"
+                                      "  - field: {sample: 10 uT, sensor: {tune: 2 kHz}}\n"
+                                      "  - acquire: {for: 10 ms, rate: 5 kHz}\n");
+    near(c->timelines[0].fields[1], 2000 / 7.0e9, 1e-16);
+}
+
 /* ---- no compiled plan holds anything over a limit ------------------------- */
 
 static void assert_within(const plan_rig *rig, const compile_timeline *t, const double *rest) {
@@ -513,6 +566,10 @@ int main(void) {
         T(test_repeat_expands_its_steps_in_order),
         T(test_shots_start_and_end_at_rest),
         T(test_shots_follow_each_other_and_reference_shots_get_their_values),
+        T(test_larmor_target_sets_the_field_for_that_frequency),
+        T(test_larmor_target_counts_the_transverse_residual),
+        T(test_tune_sets_the_detector_resonance_to_the_signal),
+        T(test_tune_to_a_frequency_uses_the_gyromagnetic_ratio),
         T(test_refuses_compliance),
         T(test_refuses_edges_too_long),
         T(test_warns_expect_adiabatic_but_sudden),
