@@ -552,6 +552,24 @@ static void test_refuses_tip_unreachable(void **state) {
         "5:5: error: point 1: the pulse cannot tip 1H by 90 deg at an amplitude of 1 uT; it reaches at most 2.864 deg in this static field (raise the amplitude or lower the field)\n");
 }
 
+static void test_refuses_resonant_compliance(void **state) {
+    expect_compile(*state, "tight-bench.yaml",
+        "shot:\n"
+        "  - field: {sample: 20 uT}\n"
+        "  - pulse: {coil: resonator, duration: 2 ms, amplitude: 80 uT, shape: resonant, "
+        "frequency: 5 kHz}\n",
+        "5:5: error: point 1: compliance of coil resonator exceeded by the resonant pulse: "
+        "62.9 V > 24 V; lower its amplitude or frequency\n");
+}
+
+static void test_refuses_pulse_on_a_coil_without_field_per_current(void **state) {
+    expect_compile(*state, "bench.yaml",
+        "shot:\n"
+        "  - pulse: {coil: main, angle: 90 deg}\n",
+        "4:5: error: point 1: coil main has no field_per_current (nor geometry), so its pulse "
+        "field is unknown\n");
+}
+
 int main(void) {
     const struct CMUnitTest tests[] = {
 #define T(name) cmocka_unit_test_setup_teardown(name, setup, teardown)
@@ -590,6 +608,8 @@ int main(void) {
         T(test_refuses_resonant_slew),
         T(test_refuses_singular),
         T(test_refuses_tip_unreachable),
+        T(test_refuses_resonant_compliance),
+        T(test_refuses_pulse_on_a_coil_without_field_per_current),
         cmocka_unit_test(test_no_compiled_plan_exceeds_a_limit),
     };
     return cmocka_run_group_tests_name("compiled timelines", tests, NULL, NULL);
