@@ -268,8 +268,10 @@ static int set_angle(compile_builder *b, const plan_step *s, pulse_shape *ps, do
         rc = pulse_set_angle(ps, nu->gamma, angle, &reach);
     }
     double b0 = sqrt(ps->b0[0] * ps->b0[0] + ps->b0[1] * ps->b0[1] + ps->b0[2] * ps->b0[2]);
+    /* Just under the largest angle, so the first peak that reaches it is
+     * taken, not a later one of the same height. */
     if (rc && ps->resonant && b0 > 0 && fabs(reach - angle) <= 2 * ps->amplitude / b0)
-        rc = pulse_set_angle(ps, nu->gamma, reach, &reach);
+        rc = pulse_set_angle(ps, nu->gamma, reach - 2e-4, &reach);
     if (rc == 0) return 0;
     char a[32], r[32], m[32], e[32];
     units_format(angle, UNITS_ANGLE_DIM, a, sizeof a);

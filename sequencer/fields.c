@@ -72,8 +72,9 @@ static double target_z(compile_builder *b, const plan_target *tg, double sample_
             compile_sample_field(rig, b->sample, currents, bs);
             if (b->sample >= 0) bs[2] = sample_bz;
             f = fabs(b->p->sample.nuclei[0]->gamma) * norm3(bs) / (2 * M_PI);
-            sign = (sample_bz < 0 ? -1 : 1) * rig->detector.sense;
         }
+        /* Parallel to the sample's field for sense 1, antiparallel for -1. */
+        sign = (sample_bz < 0 ? -1 : 1) * rig->detector.sense;
         magnitude = fabs(f) / fabs(rig->detector.gyromagnetic);
     }
     if (magnitude < bperp) {

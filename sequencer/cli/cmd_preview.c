@@ -80,9 +80,10 @@ static void finish_line(double duration) {
 
 static void print_table(const compiled *c) {
     const plan *p = c->plan;
-    printf("%s: %zu points, %zu shots on rig %s (fields along z, currents and fields during "
+    size_t np = c->scan->npoints, ns = c->scan->nshots;
+    printf("%s: %zu point%s, %zu shot%s on rig %s (fields along z, currents and fields during "
            "the first acquisition, angles of the first pulse)\n\n",
-           p->title, c->scan->npoints, c->scan->nshots, p->rig.name);
+           p->title, np, np == 1 ? "" : "s", ns, ns == 1 ? "" : "s", p->rig.name);
     bool *shown = shown_coils(c);
     if (!shown) return;
     table_header(c, shown);
