@@ -297,6 +297,17 @@ static void test_tune_to_a_frequency_uses_the_gyromagnetic_ratio(void **state) {
     near(c->timelines[0].fields[1], 2000 / 7.0e9, 1e-16);
 }
 
+static void test_tune_follows_the_sign_of_the_sample_field(void **state) {
+    fixture *f = *state;
+    const compiled *c = compile_ok(f, "shot:\n"
+                                      "  - field: {sample: -10 uT, sensor: {tune: 2 kHz}}\n"
+                                      "  - acquire: {for: 10 ms, rate: 5 kHz}\n"
+                                      "  - field: {sample: -10 uT, sensor: tune}\n"
+                                      "  - acquire: {for: 10 ms, rate: 5 kHz}\n");
+    /* sense 1: parallel to the sample's field, which points along -z here. */
+    near(c->timelines[0].fields[1], -2000 / 7.0e9, 1e-16);
+}
+
 /* ---- no compiled plan holds anything over a limit ------------------------- */
 
 static void assert_within(const plan_rig *rig, const compile_timeline *t, const double *rest) {
@@ -588,6 +599,7 @@ int main(void) {
         T(test_larmor_target_counts_the_transverse_residual),
         T(test_tune_sets_the_detector_resonance_to_the_signal),
         T(test_tune_to_a_frequency_uses_the_gyromagnetic_ratio),
+        T(test_tune_follows_the_sign_of_the_sample_field),
         T(test_refuses_compliance),
         T(test_refuses_edges_too_long),
         T(test_warns_expect_adiabatic_but_sudden),
