@@ -14,7 +14,7 @@ DEB_PACKAGES := pkg-config libyaml-dev libev-dev libcomedi-dev libcmocka-dev \
   plplot-driver-cairo python3 python3-numpy python3-scipy python3-h5py
 FUZZ_PACKAGES := clang libclang-rt-14-dev
 
-PKGS := yaml-0.1 jansson gsl plplot
+PKGS := yaml-0.1 jansson gsl plplot hdf5
 PKG_CFLAGS = $(shell pkg-config --cflags $(PKGS) 2>/dev/null)
 PKG_LIBS = $(shell pkg-config --libs $(PKGS) 2>/dev/null)
 
@@ -24,7 +24,7 @@ CFLAGS ?= -O2 -g
 ALL_CFLAGS = -std=c11 $(WARN) -D_DEFAULT_SOURCE -D_GNU_SOURCE \
   -DPRECESS_VERSION='"$(VERSION)"' -Isequencer -Idrivers -Ianalysis \
   $(PKG_CFLAGS) $(CFLAGS) $(EXTRA_CFLAGS)
-LIBS = $(PKG_LIBS) -lm $(EXTRA_LIBS)
+LIBS = $(PKG_LIBS) -lev -lpthread -lm $(EXTRA_LIBS)
 
 B ?= build
 LIB_SRCS := $(wildcard sequencer/*.c drivers/*.c drivers/*/*.c analysis/*.c)

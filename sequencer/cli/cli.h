@@ -40,6 +40,7 @@ const char *cli_duration(double seconds, char *buf, size_t n);
 
 int cmd_check(int argc, char **argv);
 int cmd_preview(int argc, char **argv);
+int cmd_run(int argc, char **argv);
 int cmd_help(int argc, char **argv);
 
 #endif

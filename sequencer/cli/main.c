@@ -34,8 +34,17 @@ static const cli_command commands[] = {
      "  --diagram FILE  draw a shot's timing diagram (PNG or SVG, by the extension)\n"
      "  --shot N        the shot the diagram shows (default 1)\n"
      "Exit status: 0 when the plan compiles, 2 otherwise.\n"},
-    {"run", cmd_later, "run a plan on the rig (or in simulation) and record every shot",
-     "usage: precess run PLAN [--out DIR] [--fast] [--yes]\n"},
+    {"run", cmd_run, "run a plan on the rig (or in simulation) and record every shot",
+     "usage: precess run PLAN [--out DIR] [--fast] [--yes]\n"
+     "\n"
+     "Checks and compiles the plan (exit 2 if it is refused), then runs every shot,\n"
+     "writing the run folder (plan, rig, points.json, journal.jsonl, records/).\n"
+     "  --out DIR   the run folder (must not exist); default runs/TITLE-DATE-TIME\n"
+     "  --fast      simulated rigs only: run in simulated time, as fast as the disk\n"
+     "  --yes       start a hardware run without asking\n"
+     "Ctrl-C once stops after the current shot; twice, or SIGTERM, aborts it.\n"
+     "Exit status: 0 every shot ok, 1 shots failed, 2 bad plan or usage,\n"
+     "3 interrupted, 4 hardware fault; the outputs end safe on every path.\n"},
     {"resume", cmd_later, "finish an interrupted run", "usage: precess resume RUN\n"},
     {"verify", cmd_later, "check that a run folder is whole", "usage: precess verify RUN\n"},
     {"analyze", cmd_later, "reduce a run to spectra, fits and plots",

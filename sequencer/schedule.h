@@ -1,0 +1,81 @@
+/* schedule: running compiled shots on a driver in time. The scheduler owns
+ * the queue of timed events of each shot; libev waits for the next deadline
+ * and for the drivers' sample descriptors; the last stretch to a deadline is
+ * an absolute clock_nanosleep with minimal timer slack, then a short spin.
+ * Hardware-timed segments (ramps, pulses) and acquisitions are handed to the
+ * driver ahead of time; line edges and starts are soft events whose actual
+ * time is recorded. A virtual clock (run --fast) runs the same code.
+ * Not for writing records (store.h) nor for printing (the CLI). */
+#ifndef PRECESS_SCHEDULE_H
+#define PRECESS_SCHEDULE_H
+
+#include <signal.h>
+#include <stdbool.h>
+#include <stdint.h>
+#include "compile.h"
+#include "driver.h"
+#include "store.h"
+
+/* ---- clocks (clock.c) ----------------------------------------------------- */
+
+typedef struct sched_clock sched_clock;
+
+/* The real monotonic clock, or a virtual one that starts at 0 and jumps to
+ * each deadline. */
+sched_clock *clock_new(bool virtual_time);
+void clock_free(sched_clock *c);
+bool clock_is_virtual(const sched_clock *c);
+double clock_now(sched_clock *c);
+/* Returns when now >= t: the real clock sleeps to about 50 us before t
+ * (absolute clock_nanosleep) and spins the rest; the virtual clock jumps. */
+void clock_wait_until(sched_clock *c, double t);
+/* Set the calling thread's timer slack to its minimum (1 ns). */
+void clock_tighten_slack(void);
+
+/* ---- running ---------------------------------------------------------------- */
+
+typedef enum { SCHED_OK, SCHED_FAILED, SCHED_INTERRUPTED, SCHED_FAULT } sched_status;
+
+/* What one attempt of a shot gave. */
+typedef struct {
+    uint32_t shot, attempt;
+    bool ok;
+    char error[256];
+    store_record *record;       /* handed to on_record, which takes it */
+    double start;               /* clock time of the shot's start */
+} sched_shot_result;
+
+typedef struct {
+    const compiled *plan;
+    const drv_ops *ops;
+    drv *driver;
+    sched_clock *clock;
+    const char *run_id, *driver_name, *plan_sha256;
+    /* Signals: set by the CLI's handlers. stop: end after the current shot;
+     * abort: end the current shot now. */
+    volatile sig_atomic_t *stop, *abort;
+    /* Called after every attempt, between shots (at rest). It takes the
+     * record; returning -1 ends the run as failed (e.g. the disk). */
+    int (*on_record)(void *ctx, sched_shot_result *r);
+    void *ctx;
+    /* Shots to skip (already done, for resume); NULL: none. */
+    const bool *done;
+} sched_run_args;
+
+typedef struct {
+    sched_status status;
+    size_t shots_ok, shots_failed;
+    char error[256];            /* fault or failure */
+    /* actual - planned of every soft event, seconds */
+    size_t nevents;
+    double p50, p99, max;
+} sched_summary;
+
+/* Run setup, every shot (with retries), teardown; always ends in the safe
+ * state. Returns the summary's status. */
+sched_status sched_run(const sched_run_args *a, sched_summary *out);
+
+/* Percentiles of n timing errors (sorted in place). */
+void sched_percentiles(double *errors, size_t n, double *p50, double *p99, double *max);
+
+#endif

@@ -1,0 +1,116 @@
+/* store: what a run leaves on disk (run-format.md): the run folder with
+ * the plan and rig as given, points.json, the append-only journal, and one
+ * HDF5 record per shot, written by a writer thread behind a bounded queue
+ * so the disk never delays the next shot; each record temp -> flush ->
+ * fsync -> rename -> fsync(folder) -> journal line.
+ * Not for deciding what to record (the scheduler and the CLI do). */
+#ifndef PRECESS_STORE_H
+#define PRECESS_STORE_H
+
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+#include "arena.h"
+
+/* ---- one shot record ---------------------------------------------------- */
+
+typedef struct {
+    const char *coil, *shape;
+    double duration, amplitude;
+    int polarity;
+    size_t nangles;
+    const char **nuclei;        /* "1H", ...: attribute angle_<NUCLEUS> */
+    double *angles;             /* rad */
+} store_pulse;
+
+typedef struct {
+    int step;
+    const char *label, *kind;
+    double planned, actual;     /* s from shot start */
+} store_event;
+
+typedef struct {
+    const char *input;          /* dataset name under /acquisitions/K/ */
+    float *samples;
+    size_t n;
+    const char *units;          /* "T" */
+    double sample_rate, t0;     /* Hz; s from shot start of the first sample */
+    int adc_bits;
+    double volts_per_count;
+    int receiver_sign;          /* +1 or -1 */
+} store_channel;
+
+typedef struct {
+    size_t nchannels;
+    store_channel *channels;
+} store_acquisition;
+
+/* A record and everything it points to live in its own arena, so the
+ * writer can take it whole and free it after writing. */
+typedef struct {
+    arena *arena;
+    const char *run, *kind, *status, *started_utc, *driver, *precess_version, *plan_sha256;
+    uint32_t shot, attempt, point, average;
+    const char *error;          /* failed attempts: why */
+    size_t nparameters, ncoils, nplaces, npulses, nevents, nacquisitions;
+    const char **parameter_names;
+    double *parameters;
+    const char **coil_names;
+    double *currents;           /* A, during the first acquisition */
+    const char **place_names;
+    double *fields;             /* T, during the first acquisition */
+    store_pulse *pulses;
+    store_event *events;
+    store_acquisition *acquisitions;
+} store_record;
+
+/* A new empty record with its own arena; store_record_free frees it all. */
+store_record *store_record_new(void);
+void store_record_free(store_record *r);
+
+/* ---- the run folder ----------------------------------------------------- */
+
+typedef struct store store;
+
+typedef struct {
+    const char *plan_bytes, *rig_bytes;
+    size_t plan_len, rig_len;
+    const char *points_json;    /* the compiled scan, as JSON text */
+} store_files;
+
+/* Create the run folder dir (it must not exist; its parent must), with
+ * plan.yaml, rig.yaml, points.json, records/ and records/failed/, each file
+ * written and fsync'd. Returns 0 and *out, or -1 with err. */
+int store_create(const char *dir, const store_files *files, store **out, char *err,
+                 size_t errlen);
+/* Start the writer thread with a queue of capacity records. */
+int store_start(store *s, size_t capacity, char *err, size_t errlen);
+/* Hand a record to the writer (it takes ownership). When the queue is full
+ * it returns 1 at once without taking it unless wait is true, in which case
+ * it waits for room. Returns 0 when queued, -1 when the writer has failed
+ * (err then says why: e.g. the disk is full). */
+int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen);
+/* Wait until every queued record is written (and journalled). */
+int store_flush(store *s, char *err, size_t errlen);
+/* Records written so far as ok, and failed. */
+void store_counts(store *s, size_t *ok, size_t *failed);
+/* Stop the writer (after writing what is queued) and free everything. */
+int store_close(store *s, char *err, size_t errlen);
+const char *store_dir(const store *s);
+
+/* ---- the journal (journal.c) --------------------------------------------- */
+
+/* Append one JSON object line (a jansson json_t *, as void * to keep jansson
+ * out of this header) with "event" and "time" put first, fsync'd. Safe from
+ * any thread. The object is consumed. */
+int journal_append(store *s, const char *event, void *object, char *err, size_t errlen);
+/* The current time as ISO 8601 UTC with microseconds. */
+void journal_time_now(char *buf, size_t n);
+
+/* ---- hashing ------------------------------------------------------------- */
+
+/* SHA-256 of bytes as 64 lower-case hex digits and a NUL (FIPS 180-4). */
+void store_sha256_hex(const void *bytes, size_t len, char out[65]);
+int store_sha256_file(const char *path, char out[65]);
+
+#endif
