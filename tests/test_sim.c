@@ -628,6 +628,60 @@ static void test_drift_is_a_random_walk_of_the_given_rms(void **state) {
     assert_near(sqrt(sum4 / runs), 20e-12, 1.2e-12);
 }
 
+/* Every shot of an example plan on a clock far from zero (as
+ * CLOCK_MONOTONIC is): each gives its record, and the longer the
+ * polarization the larger the line. Edges a rounding apart once stalled the
+ * integration of the polarization. */
+static void test_every_shot_of_the_buildup_example_gives_its_record(void **state) {
+    fixture *f = *state;
+    alarm(60);                  /* a stuck integration ends the test run */
+    f->p = plan_read_file("plans/buildup.yaml", &f->d);
+    assert_non_null(f->p);
+    f->s = scan_expand(f->p, &f->d);
+    assert_non_null(f->s);
+    f->c = compile_plan(f->p, f->s, &f->d);
+    assert_non_null(f->c);
+    drv *d = open_sim(f, 0, 5, true, NULL);
+    double shortest = INFINITY, longest = 0;
+    for (uint32_t shot = 1; shot <= f->s->nshots; shot++) {
+        const compile_timeline *tl = compile_shot_timeline(f->c, shot);
+        const compile_event *pe = pulse_event(tl), *ae = first_acquire(tl);
+        double t0 = 123456.789 + f->c->shot_start[shot - 1];
+        assert_int_equal(f->ops->begin_shot(d, shot, 1, tl, t0, f->err, ERRLEN), 0);
+        for (size_t k = 0; k < tl->nevents; k++) {
+            const compile_event *e = &tl->events[k];
+            drv_segment s = {e->channel, t0 + e->start, e->length, e->from, e->to, NULL, 0};
+            if (e->kind == EV_PULSE) {
+                s.pulse = &tl->pulses[e->index].shape_at_sample;
+                s.peak = tl->pulses[e->index].current;
+                s.from = s.to = 0;
+            }
+            if (e->kind == EV_RAMP || e->kind == EV_PULSE)
+                assert_int_equal(f->ops->load_segment(d, &s, f->err, ERRLEN), 0);
+        }
+        const compile_acquire *ca = &tl->acquisitions[ae->index];
+        size_t n = (size_t)llround(ca->length * ca->rate), got;
+        float *x = calloc(n * ca->ninputs, sizeof *x);
+        drv_acquisition a = {ca->ninputs, ca->inputs, ca->rate, t0 + ae->start, n, shot, 1};
+        int fd;
+        bool done;
+        assert_int_equal(f->ops->start_acquisition(d, &a, &fd, f->err, ERRLEN), 0);
+        assert_int_equal(f->ops->read_samples(d, x, n * ca->ninputs, &got, &done, f->err,
+                                              ERRLEN), 0);
+        assert_true(done && got == n * ca->ninputs);
+        f->ops->stop_acquisition(d);
+        double freq = GAMMA_1H * sample_field(f->c, tl, ae->start) / (2 * M_PI), amp, sd;
+        fit_lines(x, n, ca->rate, ae->start - pe->start - pe->length, &freq, 1,
+                  f->p->sample.t2.value, &amp, &sd);
+        free(x);
+        double t_pol = tl->values[0];
+        if (t_pol < 0.2) shortest = amp;
+        if (t_pol > 7) longest = amp;
+    }
+    alarm(0);
+    assert_true(shortest > 0 && longest > 5 * shortest);
+}
+
 /* ---- the ADC ----------------------------------------------------------------------- */
 
 static void test_samples_fall_on_the_quantization_step(void **state) {
@@ -959,6 +1013,7 @@ int main(void) {
         T(test_an_earlier_pulse_tips_the_polarization_left_for_the_next),
         T(test_without_a_sample_the_record_is_mains_and_white_noise),
         T(test_drift_is_a_random_walk_of_the_given_rms),
+        T(test_every_shot_of_the_buildup_example_gives_its_record),
         T(test_samples_fall_on_the_quantization_step),
         T(test_adc_clips_at_the_input_range),
         T(test_same_seed_same_samples_other_attempt_other_noise),

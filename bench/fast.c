@@ -1,0 +1,102 @@
+/* bench/fast: shots per second of `precess run --fast` for 1000 shots of
+ * 1 s at 10 kS/s on the simulated rig, records and fsync included, against
+ * the fsync-bound limit measured in the same run: the same record files
+ * (and journal lines) written, fsync'd and renamed with nothing else.
+ * Target: at least 80 % of that limit. Not a test: never in make check. */
+#include <dirent.h>
+#include <limits.h>
+#include <fcntl.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+#include <unistd.h>
+
+static double mono(void) {
+    struct timespec t;
+    clock_gettime(CLOCK_MONOTONIC, &t);
+    return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
+}
+
+static const char PLAN[] =
+    "version: 1\ntitle: fast benchmark\nrig: %s/plans/rigs/sim-bench.yaml\n"
+    "sample: {nuclei: [1H], model: {t1: 1 s, t2: 0.4 s, signal_per_field: 1e-9}}\n"
+    "vary:\n  b: {from: 5 uT, to: 40 uT, steps: 100}\n"
+    "averages: 10\n"
+    "shot:\n"
+    "  - field: {sample: b, sensor: tune}\n"
+    "  - pulse: {coil: tip, angle: 90 deg}\n"
+    "  - acquire: {for: 1 s, rate: 10 kHz}\n";
+
+/* Rewrites every record of run/records into out the way the store does. */
+static int rewrite(const char *run, const char *out, size_t *n) {
+    char path[8192];
+    snprintf(path, sizeof path, "%.4000s/records", run);
+    DIR *d = opendir(path);
+    if (!d || mkdir(out, 0777)) return -1;
+    int dirfd = open(out, O_RDONLY | O_DIRECTORY);
+    snprintf(path, sizeof path, "%.4000s/journal.jsonl", out);
+    int jfd = open(path, O_WRONLY | O_CREAT | O_APPEND, 0644);
+    static char buf[1 << 22];
+    struct dirent *e;
+    *n = 0;
+    while ((e = readdir(d))) {
+        if (!strstr(e->d_name, ".h5")) continue;
+        snprintf(path, sizeof path, "%.4000s/records/%.255s", run, e->d_name);
+        FILE *f = fopen(path, "rb");
+        size_t len = f ? fread(buf, 1, sizeof buf, f) : 0;
+        if (f) fclose(f);
+        char tmp[8192], dst[8192], line[512];
+        snprintf(tmp, sizeof tmp, "%.4000s/.%.255s.tmp", out, e->d_name);
+        snprintf(dst, sizeof dst, "%.4000s/%.255s", out, e->d_name);
+        int fd = open(tmp, O_WRONLY | O_CREAT | O_TRUNC, 0644);
+        if (fd < 0 || write(fd, buf, len) != (ssize_t)len || fsync(fd)) return -1;
+        close(fd);
+        if (rename(tmp, dst) || fsync(dirfd)) return -1;
+        int ll = snprintf(line, sizeof line, "{\"event\":\"shot\",\"file\":\"%.255s\"}\n", e->d_name);
+        if (write(jfd, line, (size_t)ll) != ll || fsync(jfd)) return -1;
+        (*n)++;
+    }
+    closedir(d);
+    close(jfd);
+    close(dirfd);
+    return 0;
+}
+
+int main(int argc, char **argv) {
+    const char *precess = argc > 1 ? argv[1] : "build/precess";
+    char cwd[2048], dir[] = "/tmp/precess-bench-fast-XXXXXX", cmd[8192], path[4096];
+    if (!getcwd(cwd, sizeof cwd) || !mkdtemp(dir)) return 1;
+    snprintf(path, sizeof path, "%s/plan.yaml", dir);
+    FILE *f = fopen(path, "w");
+    if (!f) return 1;
+    fprintf(f, PLAN, cwd);
+    fclose(f);
+    snprintf(cmd, sizeof cmd, "%s run %s/plan.yaml --fast --out %s/run >/dev/null 2>&1",
+             precess, dir, dir);
+    double t0 = mono();
+    int rc = system(cmd);
+    double t_run = mono() - t0;
+    size_t n = 0;
+    snprintf(path, sizeof path, "%s/again", dir);
+    t0 = mono();
+    char run[4096];
+    snprintf(run, sizeof run, "%s/run", dir);
+    int rc2 = rewrite(run, path, &n);
+    double t_limit = mono() - t0;
+    snprintf(cmd, sizeof cmd, "rm -rf %s", dir);
+    if (system(cmd)) {
+    }
+    if (rc || rc2 || n != 1000) {
+        fprintf(stderr, "bench/fast: the run failed (%d, %d, %zu records)\n", rc, rc2, n);
+        return 1;
+    }
+    double shots = 1000 / t_run, limit = (double)n / t_limit;
+    printf("bench/fast: run --fast, 1000 shots of 1 s at 10 kS/s, records and fsync included\n");
+    printf("  run --fast          %8.1f shots/s (%.2f s)\n", shots, t_run);
+    printf("  fsync-bound limit   %8.1f shots/s (the same files written, fsync'd, renamed)\n",
+           limit);
+    printf("  ratio %.2f of the limit (target >= 0.80)\n", shots / limit);
+    return 0;
+}
