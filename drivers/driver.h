@@ -61,7 +61,9 @@ typedef struct {
     uint32_t shot, attempt;
 } drv_acquisition;
 
-/* Every function returns 0, or -1 with a message in err (errlen bytes). */
+/* Every function returns 0; -1 with a message in err (errlen bytes) when
+ * this attempt failed (it may be retried); -2 with a message for a hardware
+ * fault (the device is gone): the run then ends in the safe state, exit 4. */
 typedef struct {
     const char *name;
     int (*open)(const drv_context *ctx, drv **out, char *err, size_t errlen);

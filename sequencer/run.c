@@ -33,7 +33,8 @@ static void keep_errors(sched *s, const sched_shot *sh) {
             s->errors = n;
             s->cap_errors = cap;
         }
-        s->errors[s->nerrors++] = sh->soft[i].actual - sh->soft[i].at;
+        double e = sh->soft[i].actual - sh->soft[i].at;
+        s->errors[s->nerrors++] = fabs(e) < 1e-9 ? 0 : e;   /* rounding, not time */
     }
 }
 

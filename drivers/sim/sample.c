@@ -269,7 +269,8 @@ static double relax_interval(const relax_ctx *r, double p, double a, double b) {
     while (t < b) {
         double t1 = t1_at(r, fa), h = (b - a) / 32;
         if (t1 > 0 && t1 / 20 < h) h = fmax(t1 / 20, floor_h);
-        double tn = fmin(b, t + h);
+        double tn = t + h;
+        if (!(tn > t) || tn > b - 1e-3 * h) tn = b;     /* always forward, never past b */
         double fb = polarizing_field(r, tn), fm = polarizing_field(r, 0.5 * (t + tn));
         p = relax(p, fa, fb, t1_at(r, fm), tn - t);
         t = tn;
