@@ -52,6 +52,12 @@ int sched_wait(sched_shot *sh, double t) {
 
 /* ---- one attempt ------------------------------------------------------------ */
 
+/* A driver's answer: -2 is a hardware fault (the run ends), -1 a failure. */
+static int driver_rc(sched_shot *sh, int rc) {
+    if (rc < -1) sh->fault = 1;
+    return rc ? -1 : 0;
+}
+
 static int cmp_soft(const void *a, const void *b) {
     const sched_soft *x = a, *y = b;
     return x->at < y->at ? -1 : x->at > y->at ? 1 : 0;
@@ -72,7 +78,9 @@ static int load_segments(sched_shot *sh) {
             seg.peak = pu->current * sched_polarity(sh, pu);
             seg.from = seg.to = 0;
         }
-        if (s->a->ops->load_segment(s->a->driver, &seg, sh->error, sizeof sh->error)) return -1;
+        if (driver_rc(sh, s->a->ops->load_segment(s->a->driver, &seg, sh->error,
+                                                  sizeof sh->error)))
+            return -1;
     }
     return 0;
 }
@@ -102,9 +110,9 @@ static int fire(sched_shot *sh, sched_soft *so) {
     so->actual = clock_now(s->clock) - sh->t0;
     if (!e) return 0;
     if (e->kind == EV_LINE)
-        return s->a->ops->set_line(s->a->driver, e->channel, e->to != 0, sh->t0 + e->start,
-                                   sh->error, sizeof sh->error);
-    if (acq_start(sh, e)) return -1;
+        return driver_rc(sh, s->a->ops->set_line(s->a->driver, e->channel, e->to != 0,
+                                                 sh->t0 + e->start, sh->error, sizeof sh->error));
+    if (driver_rc(sh, acq_start(sh, e))) return -1;
     ev_io_init(&sh->io, on_samples, sh->fd, EV_READ);
     sh->io.data = sh;
     ev_io_start(s->loop, &sh->io);
@@ -143,11 +151,11 @@ int sched_attempt(sched_shot *sh) {
     int rc = 0;
     if (interlock_broken(sh)) return -1;
     if (sh->tl_record &&
-        s->a->ops->begin_shot(s->a->driver, sh->shot, sh->attempt, sh->tl, sh->t0, sh->error,
-                              sizeof sh->error))
+        driver_rc(sh, s->a->ops->begin_shot(s->a->driver, sh->shot, sh->attempt, sh->tl, sh->t0,
+                                            sh->error, sizeof sh->error)))
         rc = -1;
     if (rc == 0 && (load_segments(sh) || build_soft(sh))) rc = -1;
-    if (rc) sh->failed = 1;
+    if (rc && !sh->fault) sh->failed = 1;
     ev_timer_start(s->loop, &s->poll);
     for (size_t i = 0; rc == 0 && i < sh->nsoft; i++) {
         sched_soft *so = &sh->soft[i];

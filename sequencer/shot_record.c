@@ -65,8 +65,8 @@ int acq_start(sched_shot *sh, const compile_event *e) {
     q->samples = malloc((q->want + 1) * sizeof *q->samples);
     if (!q->samples) return -1;
     sh->acq_done = false;
-    if (a->ops->start_acquisition(a->driver, &q->req, &sh->fd, sh->error, sizeof sh->error))
-        return -1;
+    int rc = a->ops->start_acquisition(a->driver, &q->req, &sh->fd, sh->error, sizeof sh->error);
+    if (rc) return rc;
     sh->acq_active = true;
     return 0;
 }
