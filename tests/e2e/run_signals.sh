@@ -75,4 +75,22 @@ wait $pid; rc=$?
 [ $rc = 0 ] || fail "SIGHUP: exit $rc, want 0: $(cat "$T/err")"
 [ "$(ls "$T/hup/records" | grep -c '\.h5$')" = 4 ] || fail "SIGHUP: not every shot recorded"
 check_safe "$T/hup"
+# SIGKILL of a run on a rig that acts as hardware: the run cannot clean up,
+# its supervisor must put the outputs in the safe state.
+mkdir -p "$T/hw/rigs"
+{ cat tests/plans/rigs/sim-quiet.yaml; echo "acts_as_hardware: true"; } > "$T/hw/rigs/sim-quiet.yaml"
+cp $plan "$T/hw/plan.yaml"
+$P run "$T/hw/plan.yaml" --yes --out "$T/kill" >"$T/out" 2>"$T/err" &
+pid=$!
+sleep 0.4
+n_before=$(grep -c ' safe_state$' "$T/kill/rig-commands.log")
+kill -KILL $pid
+wait $pid 2>/dev/null
+for i in 1 2 3 4 5 6 7 8 9 10; do
+    [ "$(grep -c ' safe_state$' "$T/kill/rig-commands.log")" -gt "$n_before" ] && break
+    sleep 0.2
+done
+[ "$(grep -c ' safe_state$' "$T/kill/rig-commands.log")" -gt "$n_before" ] \
+    || fail "SIGKILL: the supervisor did not make the rig safe"
+check_safe "$T/kill"
 exit 0
