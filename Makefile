@@ -33,7 +33,7 @@ LIB_OBJS := $(LIB_SRCS:%.c=$(B)/%.o)
 CLI_OBJS := $(CLI_SRCS:%.c=$(B)/%.o)
 TEST_SRCS := $(wildcard tests/test_*.c)
 TEST_BINS := $(TEST_SRCS:tests/%.c=$(B)/tests/%)
-HEADERS := $(wildcard sequencer/*.h drivers/*.h analysis/*.h tests/*.h)
+HEADERS := $(wildcard sequencer/*.h sequencer/cli/*.h drivers/*.h drivers/*/*.h analysis/*.h bench/*.h tests/*.h)
 
 .PHONY: all deps check test sanitize fuzz fuzz-deps demo install clean bench clang-check
 all: $(B)/precess

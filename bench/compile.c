@@ -10,13 +10,9 @@
 #include <string.h>
 #include <time.h>
 
-#include "compile.h"
+#include "bench.h"
 
-static double now(void) {
-    struct timespec t;
-    clock_gettime(CLOCK_MONOTONIC, &t);
-    return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
-}
+#include "compile.h"
 
 static const char *const PLAN =
     "version: 1\n"
@@ -49,9 +45,9 @@ static int one(size_t shots, int averages, double *rate, double *bytes) {
     double t0 = 0, t1 = 1e300;
     for (int k = 0; k < 3 && s; k++) {
         compile_free(c);
-        double a0 = now();
+        double a0 = bench_now();
         c = compile_plan(p, s, &d);
-        double a1 = now();
+        double a1 = bench_now();
         if (a1 - a0 < t1 - t0) t0 = a0, t1 = a1;
         if (!c) break;
     }

@@ -11,13 +11,9 @@
 #include <string.h>
 #include <sys/stat.h>
 #include <time.h>
-#include <unistd.h>
 
-static double mono(void) {
-    struct timespec t;
-    clock_gettime(CLOCK_MONOTONIC, &t);
-    return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
-}
+#include "bench.h"
+#include <unistd.h>
 
 static const char PLAN[] =
     "version: 1\ntitle: fast benchmark\nrig: %s/plans/rigs/sim-bench.yaml\n"
@@ -75,16 +71,16 @@ int main(int argc, char **argv) {
     fclose(f);
     snprintf(cmd, sizeof cmd, "%s run %s/plan.yaml --fast --out %s/run >/dev/null 2>&1",
              precess, dir, dir);
-    double t0 = mono();
+    double t0 = bench_now();
     int rc = system(cmd);
-    double t_run = mono() - t0;
+    double t_run = bench_now() - t0;
     size_t n = 0;
     snprintf(path, sizeof path, "%s/again", dir);
-    t0 = mono();
+    t0 = bench_now();
     char run[4096];
     snprintf(run, sizeof run, "%s/run", dir);
     int rc2 = rewrite(run, path, &n);
-    double t_limit = mono() - t0;
+    double t_limit = bench_now() - t0;
     snprintf(cmd, sizeof cmd, "rm -rf %s", dir);
     if (system(cmd)) {
     }

@@ -12,6 +12,8 @@
 #include <stdlib.h>
 #include <string.h>
 #include <time.h>
+
+#include "bench.h"
 #include <unistd.h>
 
 #include "schedule.h"
@@ -31,12 +33,6 @@ static void add(errors *x, double v) {
         x->e = realloc(x->e, x->cap * sizeof *x->e);
     }
     x->e[x->n++] = v;
-}
-
-static double mono(void) {
-    struct timespec t;
-    clock_gettime(CLOCK_MONOTONIC, &t);
-    return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
 }
 
 static const char PLAN[] =
@@ -74,21 +70,21 @@ static int run_scheduler(const compiled *c, errors *x) {
 }
 
 static void relative_loop(errors *x) {
-    double t0 = mono();
+    double t0 = bench_now();
     for (int k = 1; k <= EVENTS; k++) {
         usleep((useconds_t)(PERIOD * 1e6));
-        add(x, mono() - (t0 + k * PERIOD));
+        add(x, bench_now() - (t0 + k * PERIOD));
     }
 }
 
 static void absolute_loop(errors *x) {
-    double t0 = mono() + 0.01;
+    double t0 = bench_now() + 0.01;
     for (int k = 0; k < EVENTS; k++) {
         double t = t0 + k * PERIOD;
         struct timespec ts = {(time_t)t, (long)((t - floor(t)) * 1e9)};
         while (clock_nanosleep(CLOCK_MONOTONIC, TIMER_ABSTIME, &ts, NULL)) {
         }
-        add(x, mono() - t);
+        add(x, bench_now() - t);
     }
 }
 

@@ -6,6 +6,7 @@
 #include <stdio.h>
 #include "compile.h"
 #include "plan.h"
+#include "scan.h"
 
 /* Exit statuses (design: 0 ok, 1 runtime failure, 2 bad plan or usage,
  * 3 interrupted, 4 hardware fault). */
@@ -24,6 +25,11 @@ const cli_command *cli_find(const char *name);
 /* Notes belong to the file checked: drop those of other files (a plan's
  * rig reports its own when it is checked). */
 void cli_drop_foreign_notes(diag_list *d, const char *path);
+/* Read, expand and compile the plan at path, printing its diagnostics
+ * (they stay in d); *p and *s are set even when compiling fails (free all
+ * three with cli_free_compiled). Returns the compiled plan or NULL. */
+compiled *cli_compile(const char *path, diag_list *d, plan **p, scan **s);
+void cli_free_compiled(compiled *c, scan *s, plan *p);
 /* FILE:LINE:COL: error: TEXT, sorted, to f. */
 void cli_print_diags(FILE *f, diag_list *d);
 /* A usage error: prints the message and the command's usage line. */

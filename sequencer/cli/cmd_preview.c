@@ -279,11 +279,9 @@ int cmd_preview(int argc, char **argv) {
     if (parse_args(argc, argv, &a)) return CLI_USAGE;
     diag_list d;
     diag_init(&d);
-    plan *p = plan_read_file(a.plan, &d);
-    scan *s = p ? scan_expand(p, &d) : NULL;
-    compiled *c = s ? compile_plan(p, s, &d) : NULL;
-    cli_drop_foreign_notes(&d, a.plan);
-    cli_print_diags(stderr, &d);
+    plan *p;
+    scan *s;
+    compiled *c = cli_compile(a.plan, &d, &p, &s);
     int rc = c ? CLI_OK : CLI_USAGE;
     if (c && a.diagram) {
         char err[256];
@@ -302,9 +300,7 @@ int cmd_preview(int argc, char **argv) {
     } else if (c) {
         print_table(c);
     }
-    compile_free(c);
-    scan_free(s);
-    plan_free(p);
+    cli_free_compiled(c, s, p);
     diag_free(&d);
     return rc;
 }

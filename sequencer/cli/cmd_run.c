@@ -77,11 +77,9 @@ int cmd_run(int argc, char **argv) {
     if (parse(argc, argv, &a)) return CLI_USAGE;
     diag_list d;
     diag_init(&d);
-    plan *p = plan_read_file(a.plan, &d);
-    scan *s = p ? scan_expand(p, &d) : NULL;
-    compiled *c = s ? compile_plan(p, s, &d) : NULL;
-    cli_drop_foreign_notes(&d, a.plan);
-    cli_print_diags(stderr, &d);
+    plan *p;
+    scan *s;
+    compiled *c = cli_compile(a.plan, &d, &p, &s);
     diag_free(&d);
     int rc = CLI_USAGE;
     if (c) {
@@ -93,8 +91,6 @@ int cmd_run(int argc, char **argv) {
         if (rc == CLI_OK) rc = run_execute(&r);
         run_close(&r);
     }
-    compile_free(c);
-    scan_free(s);
-    plan_free(p);
+    cli_free_compiled(c, s, p);
     return rc;
 }

@@ -106,6 +106,21 @@ void cli_drop_foreign_notes(diag_list *d, const char *path) {
     d->n = k;
 }
 
+compiled *cli_compile(const char *path, diag_list *d, plan **p, scan **s) {
+    *p = plan_read_file(path, d);
+    *s = *p ? scan_expand(*p, d) : NULL;
+    compiled *c = *s ? compile_plan(*p, *s, d) : NULL;
+    cli_drop_foreign_notes(d, path);
+    cli_print_diags(stderr, d);
+    return c;
+}
+
+void cli_free_compiled(compiled *c, scan *s, plan *p) {
+    compile_free(c);
+    scan_free(s);
+    plan_free(p);
+}
+
 void cli_print_diags(FILE *f, diag_list *d) {
     static const char *const sev[] = {"error", "warning", "note"};
     diag_sort(d);
