@@ -14,7 +14,7 @@ DEB_PACKAGES := pkg-config libyaml-dev libev-dev libcomedi-dev libcmocka-dev \
   plplot-driver-cairo python3 python3-numpy python3-scipy python3-h5py
 FUZZ_PACKAGES := clang libclang-rt-14-dev
 
-PKGS := yaml-0.1 jansson gsl plplot hdf5
+PKGS := yaml-0.1 jansson gsl plplot hdf5 fftw3
 PKG_CFLAGS = $(shell pkg-config --cflags $(PKGS) 2>/dev/null)
 PKG_LIBS = $(shell pkg-config --libs $(PKGS) 2>/dev/null)
 

@@ -5,6 +5,7 @@
  * Not for parsing options (cmd_run.c) nor for timing (schedule.h). */
 #include "cli.h"
 #include "run_cli.h"
+#include "analysis.h"
 
 #include <jansson.h>
 #include <math.h>
@@ -92,20 +93,41 @@ static void clock_text(double s, char *buf, size_t n) {
     else snprintf(buf, n, "%ld:%02ld", t / 60, t % 60);
 }
 
+/* The strongest line of the shot's first acquisition, as the progress line
+ * shows it: "425.8 Hz, SNR 57", or the planned frequency when there is none. */
+static void last_line(const sched_shot_result *res, const compile_timeline *t, char *buf,
+                      size_t n) {
+    char f[32];
+    const store_record *rec = res->record;
+    an_line line;
+    if (rec && rec->nacquisitions && rec->acquisitions[0].nchannels) {
+        const store_channel *ch = &rec->acquisitions[0].channels[0];
+        double guard = fmax(10.0, 20.0 * ch->sample_rate / (double)(ch->n ? ch->n : 1));
+        if (an_quick_line(ch->samples, ch->n, ch->sample_rate, ch->receiver_sign, guard,
+                          &line) == 0) {
+            units_format(line.frequency, UNITS_FREQUENCY, f, sizeof f);
+            snprintf(buf, n, "%s, SNR %.0f", f, line.snr);
+            return;
+        }
+    }
+    units_format(t->frequency, UNITS_FREQUENCY, f, sizeof f);
+    snprintf(buf, n, "%s planned", f);
+}
+
 static void progress(run_session *r, const sched_shot_result *res) {
     const compiled *c = r->c;
     const compile_timeline *t = compile_shot_timeline(c, res->shot);
     double elapsed = clock_now(r->clock) - r->started;
     double left = c->duration - (c->shot_start[res->shot - 1] + t->duration);
-    char e[32], l[32], f[32];
+    char e[32], l[32], f[64];
     clock_text(elapsed, e, sizeof e);
     clock_text(left, l, sizeof l);
-    units_format(t->frequency, UNITS_FREQUENCY, f, sizeof f);
+    last_line(res, t, f, sizeof f);
     if (r->progress_tty)
-        fprintf(stderr, "\rshot %u/%zu  elapsed %s  remaining %s  last shot %s at %s\033[K",
+        fprintf(stderr, "\rshot %u/%zu  elapsed %s  remaining %s  last shot %s: %s\033[K",
                 res->shot, r->total, e, l, res->ok ? "ok" : "FAILED", f);
     else
-        fprintf(stderr, "shot %u/%zu attempt %u %s  elapsed %s  remaining %s  frequency %s%s%s\n",
+        fprintf(stderr, "shot %u/%zu attempt %u %s  elapsed %s  remaining %s  %s%s%s\n",
                 res->shot, r->total, res->attempt, res->ok ? "ok" : "failed", e, l, f,
                 res->ok ? "" : ": ", res->ok ? "" : res->error);
 }

@@ -56,6 +56,13 @@ def main():
     r = subprocess.run([P, "run", PLAN, "--fast", "--out", run], capture_output=True, text=True)
     if r.returncode != 0:
         fail("run exited %d: %s" % (r.returncode, r.stderr))
+    # One plain progress line per shot when stderr is not a terminal.
+    import re
+    prog = [l for l in r.stderr.splitlines() if l.startswith("shot ")]
+    if len(prog) != 4 or not all(re.match(r"shot %d/4 attempt 1 ok  elapsed [0-9:]+  remaining "
+                                          r"[0-9:]+  [0-9.]+ k?Hz, SNR [0-9]+$" % (k + 1), l)
+                                 for k, l in enumerate(prog)):
+        fail("progress lines: %s" % prog)
     prev = json.loads(subprocess.run([P, "preview", "--json", PLAN], capture_output=True,
                                      text=True, check=True).stdout)
     chk = json.loads(subprocess.run([P, "check", "--json", PLAN], capture_output=True,
