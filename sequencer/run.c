@@ -68,7 +68,8 @@ static int run_attempt(sched *s, uint32_t k, uint32_t attempt, double *next, sch
     *next = sh.t0 + sh.tl->duration;
     keep_errors(s, &sh);
     sched_shot_result res = {k, attempt, rc == 0, "", NULL, sh.t0};
-    snprintf(res.error, sizeof res.error, "%s", sh.error);
+    snprintf(res.error, sizeof res.error, "%s",
+             sh.error[0] ? sh.error : rc ? "interrupted" : "");
     res.record = sched_make_record(&sh);
     int out = rc == 0 ? 0 : 1;
     if (sh.fault) {
@@ -100,6 +101,7 @@ static int run_shots(sched *s, double *next, sched_summary *o) {
         }
         int r = 1;
         for (uint32_t att = 1; r == 1 && att <= (uint32_t)p->retries + 1; att++) {
+            if (att > 1 && *a->stop) break;   /* no retry once asked to stop */
             r = run_attempt(s, k, att, next, o);
             if (r < 0) return -1;
         }

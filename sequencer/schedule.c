@@ -22,7 +22,7 @@
 static void on_samples(struct ev_loop *loop, ev_io *w, int revents) {
     (void)revents;
     sched_shot *sh = w->data;
-    acq_read(sh);
+    sched_acq_read(sh);
     if (sh->acq_done || sh->failed) ev_io_stop(loop, w);
 }
 
@@ -33,7 +33,7 @@ int sched_wait(sched_shot *sh, double t) {
     if (clock_is_virtual(s->clock)) {
         clock_wait_until(s->clock, t);
         ev_run(s->loop, EVRUN_NOWAIT);
-        if (interlock_broken(sh)) return -1;
+        if (sched_interlock_broken(sh)) return -1;
     } else {
         for (;;) {
             if (*s->a->abort || sh->fault || sh->failed) return -1;
@@ -43,7 +43,7 @@ int sched_wait(sched_shot *sh, double t) {
             ev_timer_start(s->loop, &s->wake);
             ev_run(s->loop, EVRUN_ONCE);   /* samples, the 10 ms poll, or the wake-up */
             ev_timer_stop(s->loop, &s->wake);
-            if (interlock_broken(sh)) return -1;
+            if (sched_interlock_broken(sh)) return -1;
         }
         clock_wait_until(s->clock, t);
     }
@@ -112,7 +112,7 @@ static int fire(sched_shot *sh, sched_soft *so) {
     if (e->kind == EV_LINE)
         return driver_rc(sh, s->a->ops->set_line(s->a->driver, e->channel, e->to != 0,
                                                  sh->t0 + e->start, sh->error, sizeof sh->error));
-    if (driver_rc(sh, acq_start(sh, e))) return -1;
+    if (driver_rc(sh, sched_acq_start(sh, e))) return -1;
     ev_io_init(&sh->io, on_samples, sh->fd, EV_READ);
     sh->io.data = sh;
     ev_io_start(s->loop, &sh->io);
@@ -124,7 +124,7 @@ static void drain(sched_shot *sh) {
     double limit = clock_now(s->clock) + DRAIN_LIMIT;
     while (sh->acq_active && !sh->acq_done && !sh->failed && !sh->fault) {
         if (clock_is_virtual(s->clock)) {
-            acq_read(sh);
+            sched_acq_read(sh);
             if (!sh->acq_done && !sh->failed) {
                 snprintf(sh->error, sizeof sh->error, "the acquisition gave fewer samples "
                          "than asked");
@@ -139,9 +139,9 @@ static void drain(sched_shot *sh) {
             break;
         }
         ev_run(s->loop, EVRUN_ONCE);
-        if (interlock_broken(sh)) break;
+        if (sched_interlock_broken(sh)) break;
     }
-    acq_finish(sh);
+    sched_acq_finish(sh);
 }
 
 /* Runs one attempt of the timeline from clock time t0. Returns 0 when every
@@ -149,7 +149,7 @@ static void drain(sched_shot *sh) {
 int sched_attempt(sched_shot *sh) {
     sched *s = sh->s;
     int rc = 0;
-    if (interlock_broken(sh)) return -1;
+    if (sched_interlock_broken(sh)) return -1;
     if (sh->tl_record &&
         driver_rc(sh, s->a->ops->begin_shot(s->a->driver, sh->shot, sh->attempt, sh->tl, sh->t0,
                                             sh->error, sizeof sh->error)))
@@ -167,7 +167,7 @@ int sched_attempt(sched_shot *sh) {
     }
     ev_timer_stop(s->loop, &s->poll);
     if (rc) {
-        acq_finish(sh);
+        sched_acq_finish(sh);
         s->a->ops->stop_acquisition(s->a->driver);
     }
     return rc;

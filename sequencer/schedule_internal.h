@@ -55,10 +55,10 @@ int sched_attempt(sched_shot *sh);
 int sched_polarity(const sched_shot *sh, const compile_pulse *pu);
 
 /* shot_record.c: acquisitions and the record of an attempt. */
-int acq_start(sched_shot *sh, const compile_event *e);
-void acq_read(sched_shot *sh);
-void acq_finish(sched_shot *sh);
-bool interlock_broken(sched_shot *sh);
+int sched_acq_start(sched_shot *sh, const compile_event *e);
+void sched_acq_read(sched_shot *sh);
+void sched_acq_finish(sched_shot *sh);
+bool sched_interlock_broken(sched_shot *sh);
 store_record *sched_make_record(sched_shot *sh);
 
 #endif

@@ -13,7 +13,7 @@ int sched_polarity(const sched_shot *sh, const compile_pulse *pu) {
     return sh->shot ? compile_pulse_polarity(sh->s->a->plan, sh->shot, pu) : 1;
 }
 
-bool interlock_broken(sched_shot *sh) {
+bool sched_interlock_broken(sched_shot *sh) {
     const sched_run_args *a = sh->s->a;
     const plan_rig *rig = &a->plan->plan->rig;
     if (sh->fault) return true;
@@ -46,9 +46,9 @@ static int polarity_before(const sched_shot *sh, double t) {
     return sign;
 }
 
-int acq_start(sched_shot *sh, const compile_event *e) {
+int sched_acq_start(sched_shot *sh, const compile_event *e) {
     const sched_run_args *a = sh->s->a;
-    if (sh->acq_active) acq_finish(sh);
+    if (sh->acq_active) sched_acq_finish(sh);
     const compile_acquire *ca = &sh->tl->acquisitions[e->index];
     sched_acq *grown = realloc(sh->acqs, (sh->nacqs + 1) * sizeof *grown);
     if (!grown) return -1;
@@ -71,7 +71,7 @@ int acq_start(sched_shot *sh, const compile_event *e) {
     return 0;
 }
 
-void acq_read(sched_shot *sh) {
+void sched_acq_read(sched_shot *sh) {
     const sched_run_args *a = sh->s->a;
     if (!sh->acq_active || sh->acq_done || !sh->nacqs) return;
     sched_acq *q = &sh->acqs[sh->nacqs - 1];
@@ -99,7 +99,7 @@ void acq_read(sched_shot *sh) {
     }
 }
 
-void acq_finish(sched_shot *sh) {
+void sched_acq_finish(sched_shot *sh) {
     if (!sh->acq_active) return;
     if (ev_is_active(&sh->io)) ev_io_stop(sh->s->loop, &sh->io);
     sh->s->a->ops->stop_acquisition(sh->s->a->driver);

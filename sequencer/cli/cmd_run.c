@@ -19,9 +19,19 @@
 
 static volatile sig_atomic_t stop_flag, abort_flag;
 
+static void say(const char *text) {
+    ssize_t n = write(STDERR_FILENO, text, strlen(text));   /* async-signal-safe */
+    (void)n;
+}
+
 static void on_signal(int sig) {
-    if (sig == SIGINT && !stop_flag) stop_flag = 1;
-    else abort_flag = 1;
+    if (sig == SIGINT && !stop_flag) {
+        stop_flag = 1;
+        say("\nprecess run: stopping after this shot (Ctrl-C again to abort it now)\n");
+    } else {
+        abort_flag = 1;
+        say("\nprecess run: aborting this shot, putting the outputs in the safe state\n");
+    }
 }
 
 static void install_signals(void) {
@@ -45,6 +55,8 @@ static int parse(int argc, char **argv, run_args *a) {
         if (strcmp(argv[i], "--fast") == 0) a->fast = 1;
         else if (strcmp(argv[i], "--yes") == 0) a->yes = 1;
         else if (strcmp(argv[i], "--out") == 0 && i + 1 < argc) a->out = argv[++i];
+        else if (strcmp(argv[i], "--out") == 0)
+            return cli_usage_error("run", "--out needs the run folder to create");
         else if (argv[i][0] == '-') return cli_usage_error("run", "unknown option '%s'", argv[i]);
         else if (a->plan) return cli_usage_error("run", "one plan at a time");
         else a->plan = argv[i];
@@ -65,7 +77,7 @@ static int confirm(const compiled *c, const run_args *a) {
     }
     fprintf(stderr, "Start energizing the coils? Type yes to start: ");
     char line[16] = "";
-    if (!fgets(line, sizeof line, stdin) || strncmp(line, "yes", 3) != 0) {
+    if (!fgets(line, sizeof line, stdin) || strcmp(line, "yes\n") != 0) {
         fprintf(stderr, "precess run: not started\n");
         return -1;
     }

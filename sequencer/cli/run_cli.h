@@ -28,6 +28,7 @@ typedef struct {
     store *st;
     sched_clock *clock;
     double started;             /* clock time at the first shot */
+    bool started_set;
     size_t done, total;
     int progress_tty;
     pid_t supervisor;

@@ -135,7 +135,10 @@ static void progress(run_session *r, const sched_shot_result *res) {
 static int on_record(void *ctx, sched_shot_result *res) {
     run_session *r = ctx;
     char err[256];
-    if (!r->started) r->started = res->start;
+    if (!r->started_set) {
+        r->started = res->start;
+        r->started_set = true;
+    }
     progress(r, res);
     if (!res->record) return -1;
     int q = store_submit(r->st, res->record, false, err, sizeof err);
