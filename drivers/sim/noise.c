@@ -43,8 +43,9 @@ int sim_env_init(sim_env *e, const plan_rig *rig, uint64_t run_seed) {
     memset(e, 0, sizeof *e);
     e->drift_time = NAN;
     e->drift_rng = gsl_rng_alloc(gsl_rng_mt19937);
+    e->noise_rng = gsl_rng_alloc(gsl_rng_mt19937);
     gsl_rng *mains = gsl_rng_alloc(gsl_rng_mt19937);
-    if (!e->drift_rng || !mains) {
+    if (!e->drift_rng || !e->noise_rng || !mains) {
         gsl_rng_free(mains);
         sim_env_free(e);
         return -1;
@@ -63,7 +64,13 @@ int sim_env_init(sim_env *e, const plan_rig *rig, uint64_t run_seed) {
 
 void sim_env_free(sim_env *e) {
     if (e->drift_rng) gsl_rng_free(e->drift_rng);
-    e->drift_rng = NULL;
+    if (e->noise_rng) gsl_rng_free(e->noise_rng);
+    free(e->field);
+    free(e->osc);
+    e->drift_rng = e->noise_rng = NULL;
+    e->field = NULL;
+    e->osc = NULL;
+    e->field_cap = e->osc_cap = 0;
 }
 
 static double drift_rate(const plan_rig *rig) {
@@ -86,71 +93,199 @@ double sim_volts_per_count(const rig_input *in) {
     return (in->range_hi - in->range_lo) / ldexp(1.0, in->bits);
 }
 
-double sim_adc(const rig_input *in, double field) {
+/* An input's ADC with its step and top code worked out once. */
+typedef struct {
+    const rig_input *in;
+    double step, top;
+} adc;
+
+static adc adc_of(const rig_input *in) {
+    return (adc){in, sim_volts_per_count(in), ldexp(1.0, in->bits) - 1};
+}
+
+static double adc_convert(const adc *c, double field) {
+    const rig_input *in = c->in;
     if (in->field_per_volt == 0) return field;
     double v = field / in->field_per_volt;
     if (v < in->range_lo) v = in->range_lo;
     if (v > in->range_hi) v = in->range_hi;
     if (in->bits <= 0) return v * in->field_per_volt;
-    double step = sim_volts_per_count(in), top = ldexp(1.0, in->bits) - 1;
-    double code = floor((v - in->range_lo) / step + 0.5);
-    if (code > top) code = top;
+    double code = floor((v - in->range_lo) / c->step + 0.5);
+    if (code > c->top) code = c->top;
     if (code < 0) code = 0;
-    return (in->range_lo + code * step) * in->field_per_volt;
+    return (in->range_lo + code * c->step) * in->field_per_volt;
+}
+
+double sim_adc(const rig_input *in, double field) {
+    adc c = adc_of(in);
+    return adc_convert(&c, field);
 }
 
 /* ---- the record -------------------------------------------------------- */
 
+/* Oscillators turn by rotations between exact points: every SYNC-th sample
+ * their cos and sin come from the phase itself again, so the rounding of
+ * the rotations never outgrows SYNC of them (about 1e-13 of the amplitude). */
+#define SYNC 1024
+/* Below this |step - reference step| (rad) the rotation by the difference is
+ * its Taylor series to the third order (error below 1e-17); above it, the
+ * reference step moves to the step. */
+#define SMALL_STEP 1e-4
+
+static void osc_at(sim_osc *o, double phase) {
+    o->c = cos(phase);
+    o->s = sin(phase);
+}
+
+static void osc_reference(sim_osc *o, double step) {
+    o->d0 = step;
+    o->cd0 = cos(step);
+    o->sd0 = sin(step);
+}
+
+static void osc_turn(sim_osc *o, double cr, double sr) {
+    double c = o->c * cr - o->s * sr;
+    o->s = o->s * cr + o->c * sr;
+    o->c = c;
+}
+
+/* On by step (rad): the reference step's rotation and the rest's. */
+static void osc_rotate(sim_osc *o, double step) {
+    double e = step - o->d0;
+    if (fabs(e) > SMALL_STEP) {
+        osc_reference(o, step);
+        e = 0;
+    }
+    double e2 = e * e, ce = 1 - 0.5 * e2, se = e * (1 - e2 * (1.0 / 6));
+    osc_turn(o, o->cd0 * ce - o->sd0 * se, o->sd0 * ce + o->cd0 * se);
+}
+
+static int reserve_field(sim_env *e, size_t n) {
+    if (n <= e->field_cap) return 0;
+    double *g = realloc(e->field, n * sizeof *g);
+    if (!g) return -1;
+    e->field = g;
+    e->field_cap = n;
+    return 0;
+}
+
+static int reserve_osc(sim_env *e, size_t n) {
+    if (n <= e->osc_cap) return 0;
+    sim_osc *g = realloc(e->osc, n * sizeof *g);
+    if (!g) return -1;
+    e->osc = g;
+    e->osc_cap = n;
+    return 0;
+}
+
+/* The lines at one sample, |B| = babs: each phase summed step by step,
+ * 2 pi f dt with f = |gamma| |B| / 2 pi + offset (2 pi f since_end at the
+ * first sample), its cos by rotation or, at a sync, from the phase. */
+static double lines_at(const sim_signal *sig, sim_osc *osc, double babs, double since_end,
+                       bool first, bool sync, double decay) {
+    double s = 0;
+    for (size_t i = 0; i < sig->nlines; i++) {
+        sim_osc *o = &osc[i];
+        double step = o->per_field * babs + o->step0;
+        if (first) {
+            const sim_line *l = &sig->lines[i];
+            o->phase = (fabs(l->gamma) * babs + 2 * M_PI * l->offset) * since_end;
+            osc_at(o, o->phase);
+            osc_reference(o, step);
+        } else {
+            o->phase += step;
+            if (sync) osc_at(o, o->phase);
+            else osc_rotate(o, step);
+        }
+        s += sig->lines[i].amplitude * decay * o->c;
+    }
+    return s;
+}
+
+/* The drift walking on sample by sample: its value at each into drift. */
+static void drift_walk(sim_env *e, double walk, size_t n, double *drift) {
+    for (size_t k = 0; k < n; k++) {
+        if (k && walk > 0) e->drift += gsl_ran_gaussian_ziggurat(e->drift_rng, walk);
+        drift[k] = e->drift;
+    }
+}
+
 /* The sample's field at the sensor, sample by sample, with the drift
- * walking on. field has a->nsamples entries. */
-static int sample_trace(sim_env *e, const sim_scene *sc, const sim_signal *sig,
-                        const drv_acquisition *a, double *field) {
-    double *phase = calloc(sig->nlines + 1, sizeof *phase);
-    if (!phase) return -1;
+ * walking on (e->osc has room for every line). field has a->nsamples
+ * entries. The decay too is exact at every sync, a product in between. */
+static void sample_trace(sim_env *e, const sim_scene *sc, const sim_signal *sig,
+                         const drv_acquisition *a, double *field) {
     double dt = 1 / a->rate, b[3];
-    double walk = drift_rate(sc->rig) * sqrt(dt / 3600.0);
     bool steady = sim_scene_steady(sc, a->start, a->start + (double)a->nsamples * dt);
-    bool started = false;
+    bool started = false, decays = !isinf(sig->t2);
+    double decay = 1, per_sample = decays ? exp(-dt / sig->t2) : 1;
+    size_t since_sync = 0;
+    for (size_t i = 0; i < sig->nlines; i++)
+        e->osc[i] = (sim_osc){.per_field = fabs(sig->lines[i].gamma) * dt,
+                              .step0 = 2 * M_PI * sig->lines[i].offset * dt};
+    drift_walk(e, drift_rate(sc->rig) * sqrt(dt / 3600.0), a->nsamples, field);
     sim_sample_field(sc, a->start, b);
     for (size_t k = 0; k < a->nsamples; k++) {
         double t = a->start + (double)k * dt;
-        if (k && walk > 0) e->drift += gsl_ran_gaussian(e->drift_rng, walk);
         if (!steady) sim_sample_field(sc, t, b);
-        double bz = b[2] + e->drift, babs = sqrt(b[0] * b[0] + b[1] * b[1] + bz * bz);
+        double bz = b[2] + field[k], babs = sqrt(b[0] * b[0] + b[1] * b[1] + bz * bz);
         double s = 0;
         if (!isnan(sig->t_end) && t >= sig->t_end) {
-            double decay = isinf(sig->t2) ? 1 : exp(-(t - sig->t_end) / sig->t2);
-            for (size_t i = 0; i < sig->nlines; i++) {
-                const sim_line *l = &sig->lines[i];
-                double f = fabs(l->gamma) * babs / (2 * M_PI) + l->offset;
-                phase[i] = started ? phase[i] + 2 * M_PI * f * dt : 2 * M_PI * f * (t - sig->t_end);
-                s += l->amplitude * decay * cos(phase[i]);
+            bool sync = !started || ++since_sync == SYNC;
+            if (sync) {
+                since_sync = 0;
+                decay = decays ? exp(-(t - sig->t_end) / sig->t2) : 1;
+            } else {
+                decay *= per_sample;
             }
+            s = lines_at(sig, e->osc, babs, t - sig->t_end, !started, sync, decay);
             started = true;
         }
         field[k] = s;
     }
     if (a->nsamples) e->drift_time = a->start + (double)(a->nsamples - 1) * dt;
-    free(phase);
-    return 0;
+}
+
+/* Mains on top of the trace: each harmonic by rotation, exact at the start
+ * of every SYNC samples; the harmonics turn side by side (independent
+ * chains of arithmetic, so they overlap in the processor). */
+static void add_mains(const sim_env *e, const plan_rig *rig, const drv_acquisition *a,
+                      double *field) {
+    double fm = rig->environment.mains, bm = rig->environment.mains_field;
+    double c[SIM_MAX_HARMONICS], s[SIM_MAX_HARMONICS], cr[SIM_MAX_HARMONICS],
+        sr[SIM_MAX_HARMONICS], amplitude[SIM_MAX_HARMONICS];
+    int nh = e->harmonics;
+    for (int h = 0; h < nh; h++) {
+        cr[h] = cos(2 * M_PI * (h + 1) * fm / a->rate);
+        sr[h] = sin(2 * M_PI * (h + 1) * fm / a->rate);
+        amplitude[h] = bm / (h + 1);
+    }
+    for (size_t k0 = 0; nh > 0 && k0 < a->nsamples; k0 += SYNC) {
+        double t = a->start + (double)k0 / a->rate;
+        for (int h = 0; h < nh; h++) {
+            c[h] = cos(2 * M_PI * (h + 1) * fm * t + e->mains_phase[h]);
+            s[h] = sin(2 * M_PI * (h + 1) * fm * t + e->mains_phase[h]);
+        }
+        size_t end = a->nsamples - k0 < SYNC ? a->nsamples : k0 + SYNC;
+        for (size_t k = k0; k < end; k++)
+            for (int h = 0; h < nh; h++) {
+                field[k] += amplitude[h] * c[h];
+                double ch = c[h] * cr[h] - s[h] * sr[h];
+                s[h] = s[h] * cr[h] + c[h] * sr[h];
+                c[h] = ch;
+            }
+    }
 }
 
 /* Mains and white noise on top of the trace. */
-static int add_environment(const sim_env *e, const plan_rig *rig, const drv_acquisition *a,
-                           uint64_t noise_seed, double *field) {
-    gsl_rng *r = gsl_rng_alloc(gsl_rng_mt19937);
-    if (!r) return -1;
-    gsl_rng_set(r, seed32(noise_seed));
+static void add_environment(sim_env *e, const plan_rig *rig, const drv_acquisition *a,
+                            uint64_t noise_seed, double *field) {
+    add_mains(e, rig, a, field);
     double sigma = rig->detector.present ? rig->detector.noise * sqrt(a->rate / 2) : 0;
-    double fm = rig->environment.mains, bm = rig->environment.mains_field;
-    for (size_t k = 0; k < a->nsamples; k++) {
-        double t = a->start + (double)k / a->rate;
-        for (int h = 1; h <= e->harmonics; h++)
-            field[k] += bm / h * cos(2 * M_PI * h * fm * t + e->mains_phase[h - 1]);
-        if (sigma > 0) field[k] += gsl_ran_gaussian(r, sigma);
-    }
-    gsl_rng_free(r);
-    return 0;
+    if (!(sigma > 0)) return;
+    gsl_rng *r = e->noise_rng;
+    gsl_rng_set(r, seed32(noise_seed));
+    for (size_t k = 0; k < a->nsamples; k++) field[k] += gsl_ran_gaussian_ziggurat(r, sigma);
 }
 
 /* The input that sees the sample: the detector's, else the first. */
@@ -159,6 +294,7 @@ static int signal_input(const plan_rig *rig) {
     return rig->ninputs ? 0 : -1;
 }
 
+/* The buffers (e->field, e->osc) stay from one record to the next. */
 int sim_record(sim_env *e, const sim_scene *sc, const sim_signal *sig,
                const drv_acquisition *a, uint64_t noise_seed, float *out) {
     const plan_rig *rig = sc->rig;
@@ -166,21 +302,18 @@ int sim_record(sim_env *e, const sim_scene *sc, const sim_signal *sig,
     size_t slot = a->ninputs;
     for (size_t i = 0; i < a->ninputs; i++)
         if (a->inputs[i] == det) slot = i;
-    double *field = NULL;
     if (slot < a->ninputs) {
-        field = malloc((a->nsamples + 1) * sizeof *field);
-        if (!field || sample_trace(e, sc, sig, a, field) ||
-            add_environment(e, rig, a, noise_seed, field)) {
-            free(field);
-            return -1;
-        }
+        if (reserve_field(e, a->nsamples + 1) || reserve_osc(e, sig->nlines + 1)) return -1;
+        sample_trace(e, sc, sig, a, e->field);
+        add_environment(e, rig, a, noise_seed, e->field);
     } else {
         sim_env_drift_to(e, rig, a->start + (double)a->nsamples / a->rate);
     }
-    for (size_t k = 0; k < a->nsamples; k++)
-        for (size_t i = 0; i < a->ninputs; i++)
-            out[k * a->ninputs + i] =
-                (float)sim_adc(&rig->inputs[a->inputs[i]], i == slot ? field[k] : 0);
-    free(field);
+    for (size_t i = 0; i < a->ninputs; i++) {
+        adc c = adc_of(&rig->inputs[a->inputs[i]]);
+        float zero = (float)adc_convert(&c, 0), *o = out + i;
+        for (size_t k = 0; k < a->nsamples; k++, o += a->ninputs)
+            *o = i == slot ? (float)adc_convert(&c, e->field[k]) : zero;
+    }
     return 0;
 }

@@ -60,6 +60,8 @@ struct drv {
     bool *line_active;
     int sample_place, sensor_place;
     sim_env env;
+    float *buf;                 /* the acquisitions' samples, kept between them */
+    size_t buf_cap;             /* floats */
     /* the shot */
     uint32_t shot, attempt, acquisitions;
     const compile_timeline *tl;
@@ -276,7 +278,7 @@ static int sensor_place(const plan_rig *rig) {
 static void sim_close(drv *d) {
     if (!d) return;
     if (d->acq.fd >= 0) close(d->acq.fd);
-    free(d->acq.data);
+    free(d->buf);
     for (size_t c = 0; d->coils && c < d->rig->ncoils; c++) free(d->coils[c].seg);
     free(d->coils);
     free(d->scratch);
@@ -451,10 +453,21 @@ static int sim_safe_state(drv *d, double at, char *err, size_t errlen) {
 
 /* ---- acquisitions ------------------------------------------------------------- */
 
+/* The samples' buffer (d->buf) stays for the next acquisition. */
 static void sim_stop_acquisition(drv *d) {
     if (d->acq.fd >= 0) close(d->acq.fd);
-    free(d->acq.data);
     d->acq = (sim_acq){.fd = -1};
+}
+
+/* Room for n floats in d->buf; NULL out of memory. */
+static float *samples_buffer(drv *d, size_t n) {
+    if (n > d->buf_cap) {
+        float *g = realloc(d->buf, n * sizeof *g);
+        if (!g) return NULL;
+        d->buf = g;
+        d->buf_cap = n;
+    }
+    return d->buf;
 }
 
 static int check_acquisition(const drv *d, const drv_acquisition *a, char *err, size_t errlen) {
@@ -511,7 +524,7 @@ static int sim_start_acquisition(drv *d, const drv_acquisition *a, int *fd, char
     if (fault_on(d->rig, a->shot, FAULT_INTERLOCK) && isnan(d->interlock_at))
         d->interlock_at = a->start;
     sim_acq *q = &d->acq;
-    q->data = malloc((a->nsamples * a->ninputs + 1) * sizeof *q->data);
+    q->data = samples_buffer(d, a->nsamples * a->ninputs + 1);
     if (!q->data || make_record(d, a)) {
         sim_stop_acquisition(d);
         return fail(err, errlen, -1, "out of memory for an acquisition of %zu samples",

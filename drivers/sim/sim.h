@@ -103,12 +103,26 @@ void sim_signal_free(sim_signal *s);
 
 #define SIM_MAX_HARMONICS 64
 
+/* An oscillator in a record (a line, a mains harmonic): its phase summed
+ * sample by sample, cos and sin of it carried by rotations (noise.c). */
+typedef struct {
+    double phase, c, s;         /* rad, cos and sin of it */
+    double d0, cd0, sd0;        /* a reference step, rad, its cos and sin */
+    double per_field, step0;    /* a line's step: per_field |B| + step0, rad */
+} sim_osc;
+
 typedef struct {
     gsl_rng *drift_rng;         /* seeded from the run */
     double drift;               /* T along z, the residual's random walk */
     double drift_time;          /* absolute s of that value; NAN: not started */
     int harmonics;
     double mains_phase[SIM_MAX_HARMONICS];
+    /* kept from one record to the next (sim_record): */
+    gsl_rng *noise_rng;         /* seeded again for each record */
+    double *field;              /* field_cap samples */
+    size_t field_cap;
+    sim_osc *osc;               /* osc_cap lines */
+    size_t osc_cap;
 } sim_env;
 
 /* A 64-bit mix of three words (splitmix64 finalizer, chained). */
