@@ -26,10 +26,20 @@ check_safe() {
     return 0
 }
 
+# Waits (up to 10 s) until the run in folder $1 has loaded shot 1's
+# polarizing ramp, then 0.15 s more: the coil then carries its 2 A.
+in_shot() {
+    for i in $(seq 1 100); do
+        grep -q "segment prepol ramp 0 2 " "$1/rig-commands.log" 2>/dev/null && break
+        sleep 0.1
+    done
+    sleep 0.15
+}
+
 # SIGTERM while the polarizing coil carries 2 A: abort now.
 $P run $plan --out "$T/term" >"$T/out" 2>"$T/err" &
 pid=$!
-sleep 0.4
+in_shot "$T/term"
 kill -TERM $pid
 wait $pid; rc=$?
 [ $rc = 3 ] || fail "SIGTERM: exit $rc, want 3: $(cat "$T/err")"
@@ -45,7 +55,7 @@ grep -q "segment prepol ramp 2 0 " "$T/term/rig-commands.log" \
 # SIGINT once: the current shot ends normally, then the run stops.
 $P run $plan --out "$T/int" >"$T/out" 2>"$T/err" &
 pid=$!
-sleep 0.4
+in_shot "$T/int"
 kill -INT $pid
 wait $pid; rc=$?
 [ $rc = 3 ] || fail "SIGINT: exit $rc, want 3"
@@ -57,7 +67,7 @@ grep -q '"event":"stop".*"reason":"interrupted"' "$T/int/journal.jsonl" || fail 
 # SIGINT twice: abort now.
 $P run $plan --out "$T/int2" >"$T/out" 2>"$T/err" &
 pid=$!
-sleep 0.4
+in_shot "$T/int2"
 kill -INT $pid
 sleep 0.1
 kill -INT $pid
@@ -69,7 +79,7 @@ check_safe "$T/int2"
 # SIGHUP is ignored: the run goes on to the end.
 $P run $plan --out "$T/hup" >"$T/out" 2>"$T/err" &
 pid=$!
-sleep 0.4
+in_shot "$T/hup"
 kill -HUP $pid
 wait $pid; rc=$?
 [ $rc = 0 ] || fail "SIGHUP: exit $rc, want 0: $(cat "$T/err")"
@@ -82,7 +92,7 @@ mkdir -p "$T/hw/rigs"
 cp $plan "$T/hw/plan.yaml"
 $P run "$T/hw/plan.yaml" --yes --out "$T/kill" >"$T/out" 2>"$T/err" &
 pid=$!
-sleep 0.4
+in_shot "$T/kill"
 n_before=$(grep -c ' safe_state$' "$T/kill/rig-commands.log")
 kill -KILL $pid
 wait $pid 2>/dev/null
