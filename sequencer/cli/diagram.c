@@ -2,7 +2,7 @@
  * a strip per coil that changes (its current against time), a strip of the
  * output lines, a strip of pulse and acquisition windows, one time axis.
  * Not for analysis plots of records (analysis/plot.c), nor for printing:
- * it reports problems through err and leaves the talking to the command. */
+ * it reports problems through err and leaves printing to the command. */
 #include "cli.h"
 #include "compile.h"
 #include "scan.h"
