@@ -158,6 +158,13 @@ static int record_pulses(store_record *r, const sched_shot *sh) {
         sp->duration = pu->duration;
         sp->amplitude = pu->amplitude;
         sp->polarity = sched_polarity(sh, pu);
+        for (size_t i = 0; i < t->nevents; i++) {
+            const compile_event *e = &t->events[i];
+            if (e->kind == EV_PULSE && e->index == k) {
+                sp->start = e->start;
+                sp->end = e->start + e->length;
+            }
+        }
         sp->nangles = p->sample.nnuclei;
         sp->nuclei = arena_alloc(r->arena, (sp->nangles + 1) * sizeof *sp->nuclei);
         sp->angles = arena_alloc(r->arena, (sp->nangles + 1) * sizeof *sp->angles);

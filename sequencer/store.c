@@ -391,6 +391,8 @@ static int write_pulse(h5w *w, hid_t pulses, size_t k, const store_pulse *p) {
     rc |= attr_str(w, g, "shape", p->shape);
     rc |= attr_f64(w, g, "duration", p->duration);
     rc |= attr_f64(w, g, "amplitude", p->amplitude);
+    rc |= attr_f64(w, g, "start", p->start);
+    rc |= attr_f64(w, g, "end", p->end);
     rc |= attr_int(w, g, "polarity", p->polarity);
     for (size_t i = 0; i < p->nangles && rc == 0; i++) {
         char angle[160];

@@ -17,6 +17,7 @@
 typedef struct {
     const char *coil, *shape;
     double duration, amplitude;
+    double start, end;          /* s from shot start: first and last edge */
     int polarity;
     size_t nangles;
     const char **nuclei;        /* "1H", ...: attribute angle_<NUCLEUS> */

@@ -127,6 +127,10 @@ def check_record(path, ps, run_id):
     if pu["coil"] != "tip" or abs(pu["duration"] - ps["pulse"]["duration"]) > 1e-12 or \
             abs(pu["angle_1H"] - math.pi / 2) > 1e-9 or pu["polarity"] != 1:
         fail("pulse attributes: %s" % dict(pu))
+    step = next(s for s in ps["steps"] if s["kind"] == "pulse")
+    if abs(pu["start"] - step["start"]) > 1e-9 or \
+            not pu["start"] + pu["duration"] <= pu["end"] <= step["start"] + step["duration"] + 1e-9:
+        fail("pulse start/end %g/%g against its step %s" % (pu["start"], pu["end"], step))
     ev = f["events"][:]
     if list(ev.dtype.names) != ["step", "label", "kind", "planned", "actual"]:
         fail("events fields: %s" % (ev.dtype.names,))
