@@ -20,6 +20,7 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#define STAGE_DEPTH 4          /* built images waiting for the committer */
 #define CHUNK_SAMPLES 65536     /* samples per chunk of a sample dataset */
 #define DEFLATE_LEVEL 4
 
@@ -37,11 +38,28 @@ struct store {
     pthread_cond_t room;            /* a record left the queue or was written */
     store_record **queue;
     size_t capacity, head, count;
-    bool started, stopping, busy, failed;
+    /* Records built into file images, waiting for the committer: building
+     * (CPU) and committing (fsync, mostly waiting for the disk) overlap. */
+    pthread_cond_t built, built_room;
+    struct built_record *stage[STAGE_DEPTH];
+    size_t stage_head, stage_count;
+    size_t inflight;                /* taken from queue, not yet committed */
+    bool started, stopping, building_done, failed;
     size_t ok, nfailed, lost;       /* lost: dropped after the writer failed */
     char error[640];
-    pthread_t writer;
+    pthread_t writer, committer;
 };
+
+/* A record's file image, made by the builder for the committer. */
+typedef struct built_record {
+    store_record *r;
+    void *image;
+    size_t len;
+    bool failed;                    /* a failed attempt's partial record */
+    int rc;                         /* -1: building failed, err says why */
+    char name[64], tmp[80], rel[128], sha[65];
+    char err[640];
+} built_record;
 
 /* ---- records -------------------------------------------------------------- */
 
@@ -129,6 +147,8 @@ static void store_free(store *s) {
     pthread_mutex_destroy(&s->lock);
     pthread_cond_destroy(&s->work);
     pthread_cond_destroy(&s->room);
+    pthread_cond_destroy(&s->built);
+    pthread_cond_destroy(&s->built_room);
     free(s->queue);
     free(s->dir);
     free(s);
@@ -147,6 +167,8 @@ static store *store_alloc(const char *dir) {
     pthread_mutex_init(&s->lock, NULL);
     pthread_cond_init(&s->work, NULL);
     pthread_cond_init(&s->room, NULL);
+    pthread_cond_init(&s->built, NULL);
+    pthread_cond_init(&s->built_room, NULL);
     return s;
 }
 
@@ -444,11 +466,17 @@ static int write_events(h5w *w, hid_t f, const store_record *r) {
     }
     hsize_t dims[1] = {r->nevents};
     hid_t t = event_type(w), space = H5Screate_simple(1, dims, NULL), d = -1;
-    int rc = t < 0 || space < 0 ? h5_fail(w, "/events") : 0;
+    /* A conversion buffer the size of the table, not HDF5's default 1 MB
+     * (allocated and cleared for every record). */
+    hid_t xfer = H5Pcreate(H5P_DATASET_XFER);
+    size_t buffer = (r->nevents + 1) * 2 * sizeof(event_row);
+    int rc = t < 0 || space < 0 || xfer < 0 || H5Pset_buffer(xfer, buffer, NULL, NULL) < 0
+                 ? h5_fail(w, "/events")
+                 : 0;
     if (rc == 0) d = H5Dcreate2(f, "events", t, space, H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
-    if (rc == 0 && (d < 0 || (r->nevents &&
-                              H5Dwrite(d, t, H5S_ALL, H5S_ALL, H5P_DEFAULT, rows) < 0)))
+    if (rc == 0 && (d < 0 || (r->nevents && H5Dwrite(d, t, H5S_ALL, H5S_ALL, xfer, rows) < 0)))
         rc = h5_fail(w, "/events");
+    if (xfer >= 0) H5Pclose(xfer);
     if (rc == 0) rc = attr_str(w, d, "units", "s");
     if (d >= 0) H5Dclose(d);
     if (space >= 0) H5Sclose(space);
@@ -473,6 +501,7 @@ static int write_channel(h5w *w, hid_t g, const store_channel *c) {
     hsize_t chunk[1] = {c->n == 0 ? 1 : c->n < CHUNK_SAMPLES ? c->n : CHUNK_SAMPLES};
     hid_t space = H5Screate_simple(1, dims, max), plist = H5Pcreate(H5P_DATASET_CREATE), d = -1;
     int rc = space < 0 || plist < 0 || H5Pset_chunk(plist, 1, chunk) < 0 ||
+                     H5Pset_fill_time(plist, H5D_FILL_TIME_NEVER) < 0 ||
                      H5Pset_deflate(plist, DEFLATE_LEVEL) < 0
                  ? h5_fail(w, c->input)
                  : 0;
@@ -622,53 +651,69 @@ static const char *place_file(int dirfd, const char *tmp, const char *name, cons
     return what;
 }
 
-static int commit_record(store *s, const store_record *r, char *err, size_t errlen) {
-    bool failed = record_failed(r);
-    int dirfd = failed ? s->failedfd : s->recordsfd;
-    char name[64], tmp[80], rel[128], sha[65] = "";
-    if (failed)
-        snprintf(name, sizeof name, "%06" PRIu32 "-a%" PRIu32 ".h5", r->shot, r->attempt);
+/* The builder's half: r as the bytes of its file, and their sha256. */
+static void build_record(built_record *b) {
+    const store_record *r = b->r;
+    b->failed = record_failed(r);
+    if (b->failed)
+        snprintf(b->name, sizeof b->name, "%06" PRIu32 "-a%" PRIu32 ".h5", r->shot, r->attempt);
     else
-        snprintf(name, sizeof name, "%06" PRIu32 ".h5", r->shot);
-    snprintf(tmp, sizeof tmp, ".%s.tmp", name);
-    snprintf(rel, sizeof rel, "records/%s%s", failed ? "failed/" : "", name);
+        snprintf(b->name, sizeof b->name, "%06" PRIu32 ".h5", r->shot);
+    snprintf(b->tmp, sizeof b->tmp, ".%s.tmp", b->name);
+    snprintf(b->rel, sizeof b->rel, "records/%s%s", b->failed ? "failed/" : "", b->name);
     h5w w;
-    void *image;
-    size_t len;
     pthread_mutex_lock(&hdf5_lock);
-    int built = build_image(&w, name, r, failed, &image, &len);
+    int rc = build_image(&w, b->name, r, b->failed, &b->image, &b->len);
     pthread_mutex_unlock(&hdf5_lock);
-    if (built != 0) {
-        snprintf(err, errlen, "record %s not written: HDF5 could not build it (%s)", rel, w.err);
+    b->rc = rc == 0 ? 0 : -1;
+    if (rc != 0)
+        snprintf(b->err, sizeof b->err, "record %s not written: HDF5 could not build it (%s)",
+                 b->rel, w.err);
+    else if (!b->failed)
+        store_sha256_hex(b->image, b->len, b->sha);     /* the very bytes written */
+}
+
+/* The committer's half: the image into place, the folder fsync'd, then the
+ * journal line. */
+static int commit_record(store *s, const built_record *b, char *err, size_t errlen) {
+    if (b->rc != 0) {
+        snprintf(err, errlen, "%s", b->err);
         return -1;
     }
-    if (!failed) store_sha256_hex(image, len, sha);    /* the very bytes written */
-    const char *what = place_file(dirfd, tmp, name, image, len);
-    free(image);
+    int dirfd = b->failed ? s->failedfd : s->recordsfd;
+    const char *what = place_file(dirfd, b->tmp, b->name, b->image, b->len);
     if (what) {
         snprintf(err, errlen, "record %s not written (%s of %s: %s; the temporary file was "
-                 "removed); free disk space, then resume the run", rel, what, tmp,
+                 "removed); free disk space, then resume the run", b->rel, what, b->tmp,
                  strerror(errno));
         return -1;
     }
     if (fsync(dirfd) != 0) {
         snprintf(err, errlen, "record %s written but not journalled (fsync of records/: %s)",
-                 rel, strerror(errno));
+                 b->rel, strerror(errno));
         return -1;
     }
     char jerr[256];
-    if (journal_shot(s, r, failed, rel, sha, jerr, sizeof jerr) != 0) {
-        snprintf(err, errlen, "record %s written but not journalled (%s)", rel, jerr);
+    if (journal_shot(s, b->r, b->failed, b->rel, b->sha, jerr, sizeof jerr) != 0) {
+        snprintf(err, errlen, "record %s written but not journalled (%s)", b->rel, jerr);
         return -1;
     }
     return 0;
 }
 
+static void built_free(built_record *b) {
+    if (!b) return;
+    free(b->image);
+    store_record_free(b->r);
+    free(b);
+}
+
 /* ---- the writer thread and its queue ------------------------------------- */
 
+/* The builder: records from the queue to file images on the stage. A
+ * record it cannot take memory for fails the writer like a disk error. */
 static void *writer_main(void *arg) {
     store *s = arg;
-    char err[sizeof s->error];
     pthread_mutex_lock(&hdf5_lock);
     H5Eset_auto2(H5E_DEFAULT, NULL, NULL);
     pthread_mutex_unlock(&hdf5_lock);
@@ -679,14 +724,60 @@ static void *writer_main(void *arg) {
         store_record *r = s->queue[s->head];
         s->head = (s->head + 1) % s->capacity;
         s->count--;
-        s->busy = true;
-        bool skip = s->failed, failed_record = record_failed(r);
+        s->inflight++;
+        bool skip = s->failed;
         pthread_cond_broadcast(&s->room);
         pthread_mutex_unlock(&s->lock);
-        int rc = skip ? -1 : commit_record(s, r, err, sizeof err);
-        store_record_free(r);
+        built_record *b = skip ? NULL : calloc(1, sizeof *b);
+        if (b) {
+            b->r = r;
+            build_record(b);
+        } else {
+            store_record_free(r);
+        }
         pthread_mutex_lock(&s->lock);
-        s->busy = false;
+        if (!b) {
+            s->inflight--;
+            if (skip) {
+                s->lost++;
+            } else {
+                s->failed = true;
+                snprintf(s->error, sizeof s->error, "record writer: out of memory");
+            }
+            pthread_cond_broadcast(&s->room);
+            continue;
+        }
+        while (s->stage_count == STAGE_DEPTH) pthread_cond_wait(&s->built_room, &s->lock);
+        s->stage[(s->stage_head + s->stage_count) % STAGE_DEPTH] = b;
+        s->stage_count++;
+        pthread_cond_signal(&s->built);
+    }
+    s->building_done = true;
+    pthread_cond_signal(&s->built);
+    pthread_mutex_unlock(&s->lock);
+    return NULL;
+}
+
+/* The committer: images from the stage into the folder, in order, each
+ * fsync'd and journalled before the next. */
+static void *committer_main(void *arg) {
+    store *s = arg;
+    char err[sizeof s->error];
+    pthread_mutex_lock(&s->lock);
+    for (;;) {
+        while (s->stage_count == 0 && !s->building_done) pthread_cond_wait(&s->built, &s->lock);
+        if (s->stage_count == 0) break;
+        built_record *b = s->stage[s->stage_head];
+        s->stage_head = (s->stage_head + 1) % STAGE_DEPTH;
+        s->stage_count--;
+        bool skip = s->failed;
+        pthread_cond_signal(&s->built_room);
+        pthread_mutex_unlock(&s->lock);
+        int rc = skip ? -1 : commit_record(s, b, err, sizeof err);
+        bool failed_record = b->failed;
+        built_free(b);
+        pthread_mutex_lock(&s->lock);
+        s->inflight--;
         if (skip) {
             s->lost++;
         } else if (rc != 0) {
@@ -728,7 +819,17 @@ int store_start(store *s, size_t capacity, char *err, size_t errlen) {
     sigset_t all, old;
     sigfillset(&all);
     pthread_sigmask(SIG_SETMASK, &all, &old);
-    int rc = pthread_create(&s->writer, NULL, writer_main, s);
+    int rc = pthread_create(&s->committer, NULL, committer_main, s);
+    if (rc == 0) {
+        rc = pthread_create(&s->writer, NULL, writer_main, s);
+        if (rc != 0) {      /* the committer ends at once: nothing will be built */
+            pthread_mutex_lock(&s->lock);
+            s->building_done = true;
+            pthread_cond_signal(&s->built);
+            pthread_mutex_unlock(&s->lock);
+            pthread_join(s->committer, NULL);
+        }
+    }
     pthread_sigmask(SIG_SETMASK, &old, NULL);
     if (rc != 0) {
         snprintf(err, errlen, "cannot start the record writer: %s", strerror(rc));
@@ -773,7 +874,7 @@ int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen)
 
 int store_flush(store *s, char *err, size_t errlen) {
     pthread_mutex_lock(&s->lock);
-    while (!s->failed && (s->count > 0 || s->busy)) pthread_cond_wait(&s->room, &s->lock);
+    while (!s->failed && (s->count > 0 || s->inflight > 0)) pthread_cond_wait(&s->room, &s->lock);
     int rc = report_failure(s, err, errlen);
     pthread_mutex_unlock(&s->lock);
     return rc;
@@ -793,7 +894,10 @@ int store_close(store *s, char *err, size_t errlen) {
     pthread_cond_broadcast(&s->work);
     pthread_cond_broadcast(&s->room);
     pthread_mutex_unlock(&s->lock);
-    if (s->started) pthread_join(s->writer, NULL);
+    if (s->started) {
+        pthread_join(s->writer, NULL);
+        pthread_join(s->committer, NULL);
+    }
     int rc = report_failure(s, err, errlen);
     store_free(s);
     return rc;
