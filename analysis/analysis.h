@@ -249,8 +249,16 @@ typedef struct {
 int an_fit_calibration(const an_point *p, size_t n, double gamma_hz, an_calibration_fit *out);
 
 /* ---- plots (plot.c) ---------------------------------------------------- *
- * Each writes BASE.png and BASE.svg (written whole under a temporary name,
- * then renamed). Returns 0, or -1 with a message in err. */
+ * Each writes BASE.png and BASE.svg (both drawn whole under temporary names
+ * in BASE's folder, then renamed; on an error neither is left behind).
+ * Returns 0, or -1 with a message in err. Points with a NaN (or, on a log
+ * axis, a value <= 0) are left out; data with no point left is refused.
+ * An axis is given as a quantity's name and its SI unit apart ("delay",
+ * "s"): a unit of letters only (T, s, Hz, A, V) gets the SI prefix that
+ * suits the data (20 pT, not 2e-11 T); another unit ("1/s", "T/A") or
+ * none is written as given. Names and titles are plain text (UTF-8).
+ * PLplot keeps global state: these functions are not reentrant and must
+ * not run in two threads at once. */
 
 typedef struct {
     const char *title;          /* e.g. "shot 12 (point 3): b_detect = 10 uT" */
@@ -267,7 +275,9 @@ typedef struct {
 int an_plot_record(const char *base, const an_plot_shot *d, char *err, size_t errlen);
 
 typedef struct {
-    const char *title, *x_label, *y_label;  /* labels carry units: "delay (s)" */
+    const char *title;
+    const char *x_name, *x_unit;            /* "delay", "s" */
+    const char *y_name, *y_unit;            /* "amplitude", "T" */
     size_t n;
     const double *x, *y, *y_err;            /* y_err may be NULL */
     size_t ncurve;
@@ -278,14 +288,17 @@ typedef struct {
 int an_plot_series(const char *base, const an_plot_curve *d, char *err, size_t errlen);
 
 typedef struct {
-    const char *title, *x_label, *y_label;  /* e.g. "relaxation field (T)", "R1 (1/s)" */
+    const char *title;
+    const char *x_name, *x_unit;            /* "relaxation field", "T" */
+    const char *y_name, *y_unit;            /* "R1", "1/s" */
     size_t n;
-    const double *x, *y, *y_err;            /* log axes on both */
+    const double *x, *y, *y_err;            /* log axes on both; y_err may be NULL */
 } an_plot_profile_data;
 int an_plot_profile(const char *base, const an_plot_profile_data *d, char *err, size_t errlen);
 
 typedef struct {
-    const char *title, *y_label;            /* y: the scanned field, "field (T)" */
+    const char *title;
+    const char *y_name, *y_unit;            /* the scanned quantity: "field", "T" */
     size_t nrows, ncols;                    /* rows: points, sorted by y */
     const double *y;                        /* nrows values of the scanned quantity */
     double f_min, f_max;                    /* Hz: the columns span this */
