@@ -430,6 +430,9 @@ typedef struct {
  * plan_free, or NULL when reading failed; errors and warnings go to d in
  * both cases. The plan is returned only when d gained no error. */
 plan *plan_read_file(const char *path, diag_list *d);
+/* The same with the rig read from rig_path instead of the plan's own rig:
+ * path (a run folder's copies; a rig written inline stays inline). */
+plan *plan_read_with_rig(const char *path, const char *rig_path, diag_list *d);
 /* The same from bytes already in memory (file names the source). */
 plan *plan_read_bytes(const char *file, const char *bytes, size_t len, diag_list *d);
 void plan_free(plan *p);

@@ -205,6 +205,7 @@ static const char *const limits_keys[] = {"max_duration", NULL};
 static int read_rig(plan_reader *r, plan *p, const plan_node *n) {
     if (n->kind == PN_MAP) {
         p->rig_inline = true;
+        p->rig_path = NULL;
         p->rig.file = p->file;
         return rig_read_node(r->a, n, &p->rig, r->d);
     }
@@ -212,7 +213,9 @@ static int read_rig(plan_reader *r, plan *p, const plan_node *n) {
     if (!path) return -1;
     const char *slash = strrchr(p->file, '/');
     char *full;
-    if (path[0] == '/' || !slash) {
+    if (p->rig_path) {          /* a run folder's own copy, given by the caller */
+        full = arena_strdup(r->a, p->rig_path);
+    } else if (path[0] == '/' || !slash) {
         full = arena_strdup(r->a, path);
     } else {
         size_t dl = (size_t)(slash - p->file) + 1;
@@ -376,7 +379,8 @@ static int read_body(plan_reader *r, plan_scope *s, plan *p, const plan_node *ro
     return bad ? -1 : 0;
 }
 
-plan *plan_read_bytes(const char *file, const char *bytes, size_t len, diag_list *d) {
+static plan *read_bytes(const char *file, const char *bytes, size_t len, const char *rig_path,
+                        diag_list *d) {
     arena *a = arena_new();
     if (!a) return NULL;
     plan *p = arena_alloc(a, sizeof *p);
@@ -388,6 +392,7 @@ plan *plan_read_bytes(const char *file, const char *bytes, size_t len, diag_list
     p->arena = a;
     p->bytes = kept;
     p->nbytes = len;
+    p->rig_path = rig_path;     /* read_rig copies it into the arena */
     size_t errors = d->errors;
     plan_node *root = plan_yaml_parse(a, file, kept, len, d);
     if (!root) {
@@ -407,13 +412,21 @@ plan *plan_read_bytes(const char *file, const char *bytes, size_t len, diag_list
     return p;
 }
 
-plan *plan_read_file(const char *path, diag_list *d) {
+plan *plan_read_bytes(const char *file, const char *bytes, size_t len, diag_list *d) {
+    return read_bytes(file, bytes, len, NULL, d);
+}
+
+plan *plan_read_with_rig(const char *path, const char *rig_path, diag_list *d) {
     char *bytes;
     size_t len;
     if (plan_slurp(path, &bytes, &len, d)) return NULL;
-    plan *p = plan_read_bytes(path, bytes, len, d);
+    plan *p = read_bytes(path, bytes, len, rig_path, d);
     free(bytes);
     return p;
+}
+
+plan *plan_read_file(const char *path, diag_list *d) {
+    return plan_read_with_rig(path, NULL, d);
 }
 
 void plan_free(plan *p) {
