@@ -1,0 +1,467 @@
+/* fit: damped sinusoids fitted to a trace by GSL's nonlinear least squares
+ * (trust region, Levenberg-Marquardt steps, analytic Jacobian), with
+ * one-sigma errors from the covariance scaled by the residual variance.
+ * Not for choosing the lines or their starting values (shot.c), nor for
+ * fits across points (series.c).
+ *
+ * Internally each line has the parameters a = A / ys (ys the trace's rms),
+ * phi, u = (f - f_start) T and v = W T (T the record's length), all of
+ * order one, so GSL's relative tolerances mean the same for a trace in
+ * tesla as in volts. These are linear rescalings: the errors come back
+ * exactly. The linewidth is not bounded: a record much shorter than T2*
+ * may give W slightly below 0, which is reported as fitted, with its error
+ * (a bound at 0 would make both the value and its error biased).
+ *
+ * The solver is GSL's multilarge_nlinear, the same trust-region method as
+ * multifit_nlinear but fed J^T J and J u by the model itself: multifit keeps
+ * the n x p Jacobian and multiplies it through GSL's reference CBLAS, which
+ * for n = 16384 samples and p = 4 took ~2 ms an iteration, most of a shot's
+ * reduction; here one pass over the samples gives both. */
+#include "analysis_internal.h"
+
+#include <gsl/gsl_blas.h>
+#include <gsl/gsl_eigen.h>
+#include <gsl/gsl_errno.h>
+#include <gsl/gsl_matrix.h>
+#include <gsl/gsl_multilarge_nlinear.h>
+#include <gsl/gsl_vector.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#define NPAR 4                  /* a, phi, u, v per line */
+#define MAXP (AN_MAX_LINES * NPAR)
+#define MAX_SPACES 4            /* workspaces kept, by (n, nlines) */
+#define MAX_ITER 200
+#define XTOL 1e-10
+#define GTOL 1e-10
+#define FTOL 1e-14
+#define ANCHOR 256              /* the oscillator is set exactly this often */
+#define RCOND 1e-13             /* smallest eigenvalue of J^T J, relative, of a fit */
+#define STEP_SIGMA 1e-5         /* converged: the next step is below this many errors */
+
+/* What f and df see: the data and each line's oscillation at the last x,
+ * and the normal equations at the last x GSL asked them for. */
+typedef struct {
+    const double *y;
+    size_t n, nlines;
+    double rate, t_start, length, inv_ys;
+    double dt, inv_length;      /* 1 / rate, 1 / length */
+    double f_start[AN_MAX_LINES];
+    double *c, *s;              /* nlines x n: exp(-pi W t) cos / sin(2 pi f t + phi) */
+    double x[MAXP];
+    bool valid;                 /* c, s belong to x */
+    double jtj[MAXP * MAXP], g[MAXP], normal_x[MAXP];   /* J^T J (lower), J^T f */
+    bool normal;                /* jtj, g belong to normal_x */
+} model;
+
+typedef struct {
+    size_t n, nlines;
+    gsl_multilarge_nlinear_workspace *w;
+    gsl_matrix *jtj, *evec, *covar;
+    gsl_vector *eval;
+    gsl_eigen_symmv_workspace *eigen;
+    double *c, *s;
+} space_slot;
+
+struct an_fit_space {
+    space_slot slot[MAX_SPACES];
+    size_t used, next;
+};
+
+static void slot_free(space_slot *sl) {
+    if (sl->w) gsl_multilarge_nlinear_free(sl->w);
+    if (sl->jtj) gsl_matrix_free(sl->jtj);
+    if (sl->evec) gsl_matrix_free(sl->evec);
+    if (sl->covar) gsl_matrix_free(sl->covar);
+    if (sl->eval) gsl_vector_free(sl->eval);
+    if (sl->eigen) gsl_eigen_symmv_free(sl->eigen);
+    free(sl->c);
+    free(sl->s);
+    memset(sl, 0, sizeof *sl);
+}
+
+void an_fit_space_free(an_fit_space *s) {
+    if (!s) return;
+    for (size_t i = 0; i < s->used; i++) slot_free(&s->slot[i]);
+    free(s);
+}
+
+/* ---- the model ----------------------------------------------------------------- */
+
+/* Fills c, s of every line for parameters x, by a rotation per sample. */
+static int oscillate(model *m, const double *x) {
+    if (m->valid && memcmp(m->x, x, m->nlines * NPAR * sizeof *x) == 0) return 0;
+    m->valid = false;
+    for (size_t k = 0; k < m->nlines; k++) {
+        double f = m->f_start[k] + x[NPAR * k + 2] * m->inv_length;
+        double width = x[NPAR * k + 3] * m->inv_length, phi = x[NPAR * k + 1];
+        double decay = -M_PI * width, omega = 2 * M_PI * f;
+        double qe = exp(decay * m->dt), qc = qe * cos(omega * m->dt), qs = qe * sin(omega * m->dt);
+        double *c = m->c + k * m->n, *s = m->s + k * m->n, zc = 0, zs = 0;
+        for (size_t i = 0; i < m->n; i++) {
+            if (i % ANCHOR == 0) {
+                double t = m->t_start + (double)i * m->dt, e = exp(decay * t);
+                zc = e * cos(omega * t + phi);
+                zs = e * sin(omega * t + phi);
+                if (!isfinite(zc) || !isfinite(zs) || e > 1e150) return GSL_EDOM;
+            }
+            c[i] = zc;
+            s[i] = zs;
+            double nc = zc * qc - zs * qs;
+            zs = zc * qs + zs * qc;
+            zc = nc;
+        }
+    }
+    memcpy(m->x, x, m->nlines * NPAR * sizeof *x);
+    m->valid = true;
+    return 0;
+}
+
+static int model_f(const gsl_vector *xv, void *params, gsl_vector *fv) {
+    model *m = params;
+    const double *x = xv->data;
+    if (oscillate(m, x)) return GSL_EDOM;
+    double *f = fv->data;
+    size_t stride = fv->stride;
+    for (size_t i = 0; i < m->n; i++) f[i * stride] = -m->y[i] * m->inv_ys;
+    for (size_t k = 0; k < m->nlines; k++) {
+        double a = x[NPAR * k];
+        const double *c = m->c + k * m->n;
+        for (size_t i = 0; i < m->n; i++) f[i * stride] += a * c[i];
+    }
+    return GSL_SUCCESS;
+}
+
+/* Row i of the Jacobian: d/da = c, d/dphi = -a s, d/du = -a s 2 pi t / T,
+ * d/dv = -a c pi t / T for each line. */
+static void jacobian_row(const model *m, const double *x, size_t i, double *row) {
+    double t = m->t_start + (double)i * m->dt;
+    double kv = M_PI * t * m->inv_length, ku = 2 * kv;
+    for (size_t k = 0; k < m->nlines; k++) {
+        double a = x[NPAR * k], c = m->c[k * m->n + i], s = m->s[k * m->n + i];
+        row[NPAR * k] = c;
+        row[NPAR * k + 1] = -a * s;
+        row[NPAR * k + 2] = -a * s * ku;
+        row[NPAR * k + 3] = -a * c * kv;
+    }
+}
+
+/* J^T J (lower half, rows MAXP apart) and J^T u (u may be NULL) of one
+ * line: the common case, with the ten sums kept in registers. */
+static void normal_one_line(const model *m, const double *x, const gsl_vector *u, double *jtj,
+                            double *jtu) {
+    double a = x[0], s00 = 0, s10 = 0, s11 = 0, s20 = 0, s21 = 0, s22 = 0, s30 = 0, s31 = 0,
+           s32 = 0, s33 = 0, u0 = 0, u1 = 0, u2 = 0, u3 = 0;
+    for (size_t i = 0; i < m->n; i++) {
+        double kv = M_PI * (m->t_start + (double)i * m->dt) * m->inv_length;
+        double r0 = m->c[i], r1 = -a * m->s[i], r2 = 2 * kv * r1, r3 = -a * kv * r0;
+        s00 += r0 * r0, s10 += r1 * r0, s11 += r1 * r1;
+        s20 += r2 * r0, s21 += r2 * r1, s22 += r2 * r2;
+        s30 += r3 * r0, s31 += r3 * r1, s32 += r3 * r2, s33 += r3 * r3;
+        if (u) {
+            double ui = u->data[i * u->stride];
+            u0 += r0 * ui, u1 += r1 * ui, u2 += r2 * ui, u3 += r3 * ui;
+        }
+    }
+    double lower[4][4] = {{s00}, {s10, s11}, {s20, s21, s22}, {s30, s31, s32, s33}};
+    for (size_t j = 0; j < 4; j++)
+        for (size_t l = 0; l <= j; l++) jtj[j * MAXP + l] = lower[j][l];
+    jtu[0] = u0, jtu[1] = u1, jtu[2] = u2, jtu[3] = u3;
+}
+
+/* The same for any number of lines. */
+static void normal_lines(const model *m, const double *x, const gsl_vector *u, double *jtj,
+                         double *jtu) {
+    size_t p = NPAR * m->nlines;
+    double row[MAXP];
+    memset(jtu, 0, p * sizeof *jtu);
+    for (size_t j = 0; j < p; j++) memset(jtj + j * MAXP, 0, (j + 1) * sizeof *jtj);
+    for (size_t i = 0; i < m->n; i++) {
+        jacobian_row(m, x, i, row);
+        if (u) {
+            double ui = u->data[i * u->stride];
+            for (size_t j = 0; j < p; j++) jtu[j] += row[j] * ui;
+        }
+        for (size_t j = 0; j < p; j++)
+            for (size_t l = 0; l <= j; l++) jtj[j * MAXP + l] += row[j] * row[l];
+    }
+}
+
+/* v = J u, line by line: each line's four columns folded into one
+ * coefficient of c and one of s per sample. */
+static void jacobian_times(const model *m, const double *x, const gsl_vector *u, gsl_vector *v) {
+    double *out = v->data;
+    size_t stride = v->stride;
+    for (size_t i = 0; i < m->n; i++) out[i * stride] = 0;
+    for (size_t k = 0; k < m->nlines; k++) {
+        const double *uk = u->data + NPAR * k * u->stride;
+        double a = x[NPAR * k], ua = uk[0], up = uk[u->stride], uu = uk[2 * u->stride],
+               uv = uk[3 * u->stride];
+        const double *c = m->c + k * m->n, *s = m->s + k * m->n;
+        for (size_t i = 0; i < m->n; i++) {
+            double kv = M_PI * (m->t_start + (double)i * m->dt) * m->inv_length;
+            /* row . u = c ua - a s up - a s 2 kv uu - a c kv uv */
+            out[i * stride] += c[i] * (ua - a * kv * uv) - a * s[i] * (up + 2 * kv * uu);
+        }
+    }
+}
+
+/* v = J u (NoTrans) or J^T u (Trans) when v is given, and the lower half of
+ * J^T J when JTJ is given, each in one pass over the samples. J^T J and
+ * J^T f at the point GSL asks them for are kept for the convergence test. */
+static int model_df(CBLAS_TRANSPOSE_t trans, const gsl_vector *xv, const gsl_vector *u,
+                    void *params, gsl_vector *v, gsl_matrix *JTJ) {
+    model *m = params;
+    const double *x = xv->data;
+    size_t p = NPAR * m->nlines;
+    if (oscillate(m, x)) return GSL_EDOM;
+    if (v && trans == CblasNoTrans) jacobian_times(m, x, u, v);
+    if (!JTJ && !(v && trans == CblasTrans)) return GSL_SUCCESS;
+    const gsl_vector *back = v && trans == CblasTrans ? u : NULL;
+    if (m->nlines == 1) normal_one_line(m, x, back, m->jtj, m->g);
+    else normal_lines(m, x, back, m->jtj, m->g);
+    memcpy(m->normal_x, x, p * sizeof *x);
+    m->normal = back != NULL;
+    if (back)
+        for (size_t j = 0; j < p; j++) gsl_vector_set(v, j, m->g[j]);
+    if (JTJ)
+        for (size_t j = 0; j < p; j++)
+            for (size_t l = 0; l <= j; l++) gsl_matrix_set(JTJ, j, l, m->jtj[j * MAXP + l]);
+    return GSL_SUCCESS;
+}
+
+/* ---- workspaces ------------------------------------------------------------------- */
+
+static space_slot *slot_for(an_fit_space **space, size_t n, size_t nlines) {
+    if (!*space && !(*space = calloc(1, sizeof **space))) return NULL;
+    an_fit_space *fs = *space;
+    for (size_t i = 0; i < fs->used; i++)
+        if (fs->slot[i].n == n && fs->slot[i].nlines == nlines) return &fs->slot[i];
+    size_t i = fs->used < MAX_SPACES ? fs->used++ : fs->next++ % MAX_SPACES;
+    space_slot *sl = &fs->slot[i];
+    slot_free(sl);
+    gsl_multilarge_nlinear_parameters par = gsl_multilarge_nlinear_default_parameters();
+    par.trs = gsl_multilarge_nlinear_trs_lm;
+    par.scale = gsl_multilarge_nlinear_scale_levenberg;
+    par.solver = gsl_multilarge_nlinear_solver_mcholesky;
+    size_t p = NPAR * nlines;
+    sl->w = gsl_multilarge_nlinear_alloc(gsl_multilarge_nlinear_trust, &par, n, p);
+    sl->jtj = gsl_matrix_alloc(p, p);
+    sl->evec = gsl_matrix_alloc(p, p);
+    sl->covar = gsl_matrix_alloc(p, p);
+    sl->eval = gsl_vector_alloc(p);
+    sl->eigen = gsl_eigen_symmv_alloc(p);
+    sl->c = malloc(n * nlines * sizeof *sl->c);
+    sl->s = malloc(n * nlines * sizeof *sl->s);
+    sl->n = n;
+    sl->nlines = nlines;
+    if (!sl->w || !sl->jtj || !sl->evec || !sl->covar || !sl->eval || !sl->eigen || !sl->c ||
+        !sl->s) {
+        slot_free(sl);
+        if (i + 1 == fs->used) fs->used--;
+        return NULL;
+    }
+    return sl;
+}
+
+/* ---- the fit ------------------------------------------------------------------------- */
+
+/* |f|, without the reference CBLAS's overflow-safe (and slow) dnrm2: the
+ * residuals here are of order one. */
+static double norm(const gsl_vector *f) {
+    double sum = 0;
+    for (size_t i = 0; i < f->size; i++) sum += f->data[i * f->stride] * f->data[i * f->stride];
+    return sqrt(sum);
+}
+
+static double trace_rms(const double *y, size_t n) {
+    double sum = 0;
+    for (size_t i = 0; i < n; i++) sum += y[i] * y[i];
+    return sqrt(sum / (double)n);
+}
+
+static bool usable(const an_line_fit *start, size_t nlines, double rate) {
+    for (size_t k = 0; k < nlines; k++) {
+        const an_line_fit *l = &start[k];
+        if (!isfinite(l->frequency) || !isfinite(l->amplitude) || !isfinite(l->phase) ||
+            !isfinite(l->linewidth) || fabs(l->frequency) > rate)
+            return false;
+    }
+    return true;
+}
+
+/* The eigen-decomposition of J^T J and J^T f at x (the ones kept from GSL's
+ * last request when they are for x). -1 when J^T J is singular: a
+ * parameter the data do not determine. */
+static int decompose(space_slot *sl, model *m, const gsl_vector *x, const gsl_vector *f) {
+    size_t p = NPAR * m->nlines;
+    if (!m->normal || memcmp(m->normal_x, x->data, p * sizeof *m->normal_x) != 0) {
+        if (oscillate(m, x->data)) return -1;
+        if (m->nlines == 1) normal_one_line(m, x->data, f, m->jtj, m->g);
+        else normal_lines(m, x->data, f, m->jtj, m->g);
+        memcpy(m->normal_x, x->data, p * sizeof *m->normal_x);
+        m->normal = true;
+    }
+    for (size_t j = 0; j < p; j++)
+        for (size_t l = 0; l <= j; l++) {
+            gsl_matrix_set(sl->jtj, j, l, m->jtj[j * MAXP + l]);
+            gsl_matrix_set(sl->jtj, l, j, m->jtj[j * MAXP + l]);
+        }
+    if (gsl_eigen_symmv(sl->jtj, sl->eval, sl->evec, sl->eigen)) return -1;
+    double top = gsl_vector_max(sl->eval), low = gsl_vector_min(sl->eval);
+    return top > 0 && low > RCOND * top ? 0 : -1;
+}
+
+/* g^T (J^T J)^-1 g: the next Gauss-Newton step's length squared in units
+ * of the parameters' errors, times the residual variance. */
+static double decrement(const space_slot *sl, const model *m) {
+    size_t p = NPAR * m->nlines;
+    double d = 0;
+    for (size_t e = 0; e < p; e++) {
+        double proj = 0;
+        for (size_t j = 0; j < p; j++) proj += gsl_matrix_get(sl->evec, j, e) * m->g[j];
+        d += proj * proj / gsl_vector_get(sl->eval, e);
+    }
+    return d;
+}
+
+/* (J^T J)^-1 from the decomposition, into sl->covar. */
+static void covariance(space_slot *sl, size_t p) {
+    for (size_t j = 0; j < p; j++)
+        for (size_t l = 0; l <= j; l++) {
+            double sum = 0;
+            for (size_t e = 0; e < p; e++)
+                sum += gsl_matrix_get(sl->evec, j, e) * gsl_matrix_get(sl->evec, l, e) /
+                       gsl_vector_get(sl->eval, e);
+            gsl_matrix_set(sl->covar, j, l, sum);
+            gsl_matrix_set(sl->covar, l, j, sum);
+        }
+}
+
+/* The fitted lines back in the caller's units, with their errors; the
+ * amplitude made >= 0 and the phase put in (-pi, pi]. */
+static void unpack(const model *m, const double *x, const gsl_matrix *covar, double variance,
+                   double ys, an_line_fit *out) {
+    for (size_t k = 0; k < m->nlines; k++) {
+        const double *q = x + NPAR * k;
+        double err[NPAR];
+        for (size_t j = 0; j < NPAR; j++) {
+            double c = gsl_matrix_get(covar, NPAR * k + j, NPAR * k + j) * variance;
+            err[j] = c > 0 ? sqrt(c) : 0;
+        }
+        an_line_fit *l = &out[k];
+        double a = q[0] * ys, phi = q[1];
+        if (a < 0) a = -a, phi += M_PI;
+        phi = remainder(phi, 2 * M_PI);
+        if (phi <= -M_PI) phi += 2 * M_PI;
+        l->amplitude = a;
+        l->amplitude_err = err[0] * ys;
+        l->phase = phi;
+        l->phase_err = err[1];
+        l->frequency = m->f_start[k] + q[2] / m->length;
+        l->frequency_err = err[2] / m->length;
+        l->linewidth = q[3] / m->length;
+        l->linewidth_err = err[3] / m->length;
+        l->snr = 0;
+    }
+}
+
+/* Iterates until the next Gauss-Newton step would move no parameter by
+ * more than STEP_SIGMA of its error (a scale-free test; GSL's own xtol and
+ * gtol tests are kept as a backstop). Then the minimum's cost changes
+ * below rounding, where GSL's steps are rejected one after another. */
+static int iterate(space_slot *sl, model *m, size_t p) {
+    for (size_t iter = 0; iter < MAX_ITER; iter++) {
+        int status = gsl_multilarge_nlinear_iterate(sl->w);
+        if (status == GSL_ENOPROG) return 0;
+        if (status != GSL_SUCCESS) return -1;
+        const gsl_vector *x = gsl_multilarge_nlinear_position(sl->w);
+        const gsl_vector *f = gsl_multilarge_nlinear_residual(sl->w);
+        double chi = norm(f), variance = chi * chi / (double)(m->n - p);
+        if (decompose(sl, m, x, f) == 0 &&
+            decrement(sl, m) <= STEP_SIGMA * STEP_SIGMA * variance)
+            return 0;
+        int info;
+        if (gsl_multilarge_nlinear_test(XTOL, GTOL, FTOL, &info, sl->w) == GSL_SUCCESS)
+            return 0;
+    }
+    return -1;
+}
+
+static int solve(space_slot *sl, model *m, const double *x0, double ys, an_line_fit *out,
+                 double *rms) {
+    size_t p = NPAR * m->nlines;
+    gsl_vector_const_view x0v = gsl_vector_const_view_array(x0, p);
+    gsl_multilarge_nlinear_fdf fdf = {model_f, model_df, NULL, m->n, p, m, 0, 0, 0, 0};
+    if (gsl_multilarge_nlinear_init(&x0v.vector, &fdf, sl->w) != GSL_SUCCESS ||
+        iterate(sl, m, p))
+        return -1;
+    const gsl_vector *x = gsl_multilarge_nlinear_position(sl->w);
+    for (size_t j = 0; j < p; j++)
+        if (!isfinite(gsl_vector_get(x, j))) return -1;
+    /* the residual at x itself (the workspace's may be a trial point's) */
+    gsl_vector *f = gsl_multilarge_nlinear_residual(sl->w);
+    if (model_f(x, m, f)) return -1;
+    double chi = norm(f);
+    if (!isfinite(chi) || decompose(sl, m, x, f)) return -1;
+    covariance(sl, p);
+    unpack(m, x->data, sl->covar, chi * chi / (double)(m->n - p), ys, out);
+    if (rms) *rms = ys * chi / sqrt((double)m->n);
+    return 0;
+}
+
+int an_fit_lines_in(an_fit_space **space, const double *y, size_t n, double rate,
+                    double t_start, const an_line_fit *start, size_t nlines, an_line_fit *out,
+                    double *rms) {
+    if (!space || !y || !start || !out || nlines == 0 || nlines > AN_MAX_LINES ||
+        !(rate > 0) || !isfinite(rate) || !isfinite(t_start) || n < NPAR * nlines + 2 ||
+        !usable(start, nlines, rate))
+        return -1;
+    double ys = trace_rms(y, n);
+    if (!(ys > 0) || !isfinite(ys)) return -1;
+    space_slot *sl = slot_for(space, n, nlines);
+    if (!sl) return -1;
+    model m = {.y = y, .n = n, .nlines = nlines, .rate = rate, .t_start = t_start,
+               .length = (double)n / rate, .inv_ys = 1.0 / ys, .dt = 1.0 / rate,
+               .inv_length = rate / (double)n, .c = sl->c, .s = sl->s};
+    double x0[MAXP];
+    for (size_t k = 0; k < nlines; k++) {
+        m.f_start[k] = start[k].frequency;
+        x0[NPAR * k] = start[k].amplitude / ys;
+        x0[NPAR * k + 1] = start[k].phase;
+        x0[NPAR * k + 2] = 0;
+        x0[NPAR * k + 3] = start[k].linewidth * m.length;
+    }
+    return solve(sl, &m, x0, ys, out, rms);
+}
+
+void an_lines_subtract(const an_line_fit *lines, size_t nlines, double rate, double t_start,
+                       const double *y, size_t n, double *out) {
+    for (size_t i = 0; i < n; i++) out[i] = y[i];
+    for (size_t k = 0; k < nlines; k++) {
+        const an_line_fit *l = &lines[k];
+        double decay = -M_PI * l->linewidth, omega = 2 * M_PI * l->frequency, dt = 1.0 / rate;
+        double qe = exp(decay * dt), qc = qe * cos(omega * dt), qs = qe * sin(omega * dt);
+        double zc = 0, zs = 0;
+        for (size_t i = 0; i < n; i++) {
+            if (i % ANCHOR == 0) {
+                double t = t_start + (double)i * dt, e = l->amplitude * exp(decay * t);
+                zc = e * cos(omega * t + l->phase);
+                zs = e * sin(omega * t + l->phase);
+            }
+            out[i] -= zc;
+            double nc = zc * qc - zs * qs;
+            zs = zc * qs + zs * qc;
+            zc = nc;
+        }
+    }
+}
+
+int an_fit_lines(const double *y, size_t n, double rate, double t_start,
+                 const an_line_fit *start, size_t nlines, an_line_fit *out, double *rms) {
+    an_fit_space *space = NULL;
+    int rc = an_fit_lines_in(&space, y, n, rate, t_start, start, nlines, out, rms);
+    an_fit_space_free(space);
+    return rc;
+}
