@@ -49,6 +49,7 @@ typedef struct {
     double dt, inv_length;      /* 1 / rate, 1 / length */
     double f_start[AN_MAX_LINES];
     double *c, *s;              /* nlines x n: exp(-pi W t) cos / sin(2 pi f t + phi) */
+    double *kv;                 /* n: pi t / T */
     double x[MAXP];
     bool valid;                 /* c, s belong to x */
     double jtj[MAXP * MAXP], g[MAXP], normal_x[MAXP];   /* J^T J (lower), J^T f */
@@ -61,7 +62,7 @@ typedef struct {
     gsl_matrix *jtj, *evec, *covar;
     gsl_vector *eval;
     gsl_eigen_symmv_workspace *eigen;
-    double *c, *s;
+    double *c, *s, *kv;
 } space_slot;
 
 struct an_fit_space {
@@ -78,6 +79,7 @@ static void slot_free(space_slot *sl) {
     if (sl->eigen) gsl_eigen_symmv_free(sl->eigen);
     free(sl->c);
     free(sl->s);
+    free(sl->kv);
     memset(sl, 0, sizeof *sl);
 }
 
@@ -133,58 +135,65 @@ static int model_f(const gsl_vector *xv, void *params, gsl_vector *fv) {
     return GSL_SUCCESS;
 }
 
-/* Row i of the Jacobian: d/da = c, d/dphi = -a s, d/du = -a s 2 pi t / T,
- * d/dv = -a c pi t / T for each line. */
-static void jacobian_row(const model *m, const double *x, size_t i, double *row) {
-    double t = m->t_start + (double)i * m->dt;
-    double kv = M_PI * t * m->inv_length, ku = 2 * kv;
+/* Row i of the Jacobian holds, for each line k, alpha_j B_j kv^e_j with
+ * (alpha, B, e) = (1, c, 0), (-a, s, 0), (-2a, s, 1), (-a, c, 1) for
+ * d/da, d/dphi, d/du, d/dv, and kv = pi t / T. So J^T J comes from twelve
+ * sums per pair of lines, of c or s of one times c or s of the other times
+ * kv^0, kv^1 or kv^2, kept in registers over one pass each. */
+static const int basis_of[NPAR] = {0, 1, 1, 0};     /* 0: c, 1: s */
+static const int power_of[NPAR] = {0, 0, 1, 1};
+
+static double alpha_of(const double *x, size_t k, size_t j) {
+    static const double scale[NPAR] = {1, -1, -2, -1};
+    return j == 0 ? 1 : scale[j] * x[NPAR * k];
+}
+
+/* sum[bk][bl][e] = sum_i B_bk(line k) B_bl(line l) kv^e. */
+static void pair_sums(const model *m, size_t k, size_t l, double sum[2][2][3]) {
+    const double *ck = m->c + k * m->n, *sk = m->s + k * m->n;
+    const double *cl = m->c + l * m->n, *sl = m->s + l * m->n, *kv = m->kv;
+    double cc0 = 0, cc1 = 0, cc2 = 0, cs0 = 0, cs1 = 0, cs2 = 0;
+    double sc0 = 0, sc1 = 0, sc2 = 0, ss0 = 0, ss1 = 0, ss2 = 0;
+    for (size_t i = 0; i < m->n; i++) {
+        double w = kv[i], cc = ck[i] * cl[i], cs = ck[i] * sl[i], sc = sk[i] * cl[i],
+               ss = sk[i] * sl[i];
+        cc0 += cc, cs0 += cs, sc0 += sc, ss0 += ss;
+        cc *= w, cs *= w, sc *= w, ss *= w;
+        cc1 += cc, cs1 += cs, sc1 += sc, ss1 += ss;
+        cc2 += cc * w, cs2 += cs * w, sc2 += sc * w, ss2 += ss * w;
+    }
+    double out[2][2][3] = {{{cc0, cc1, cc2}, {cs0, cs1, cs2}}, {{sc0, sc1, sc2}, {ss0, ss1, ss2}}};
+    memcpy(sum, out, sizeof out);
+}
+
+/* J^T u for line k into jtu[4k..4k+3]. */
+static void line_times(const model *m, const double *x, size_t k, const gsl_vector *u,
+                       double *jtu) {
+    const double *c = m->c + k * m->n, *s = m->s + k * m->n, *kv = m->kv;
+    double c0 = 0, c1 = 0, s0 = 0, s1 = 0;
+    for (size_t i = 0; i < m->n; i++) {
+        double ui = u->data[i * u->stride], uc = ui * c[i], us = ui * s[i];
+        c0 += uc, s0 += us, c1 += uc * kv[i], s1 += us * kv[i];
+    }
+    double sum[2][2] = {{c0, c1}, {s0, s1}};
+    for (size_t j = 0; j < NPAR; j++)
+        jtu[NPAR * k + j] = alpha_of(x, k, j) * sum[basis_of[j]][power_of[j]];
+}
+
+/* The lower half of J^T J (rows MAXP apart) and J^T u (u may be NULL). */
+static void normal_equations(const model *m, const double *x, const gsl_vector *u,
+                             double *jtj, double *jtu) {
     for (size_t k = 0; k < m->nlines; k++) {
-        double a = x[NPAR * k], c = m->c[k * m->n + i], s = m->s[k * m->n + i];
-        row[NPAR * k] = c;
-        row[NPAR * k + 1] = -a * s;
-        row[NPAR * k + 2] = -a * s * ku;
-        row[NPAR * k + 3] = -a * c * kv;
-    }
-}
-
-/* J^T J (lower half, rows MAXP apart) and J^T u (u may be NULL) of one
- * line: the common case, with the ten sums kept in registers. */
-static void normal_one_line(const model *m, const double *x, const gsl_vector *u, double *jtj,
-                            double *jtu) {
-    double a = x[0], s00 = 0, s10 = 0, s11 = 0, s20 = 0, s21 = 0, s22 = 0, s30 = 0, s31 = 0,
-           s32 = 0, s33 = 0, u0 = 0, u1 = 0, u2 = 0, u3 = 0;
-    for (size_t i = 0; i < m->n; i++) {
-        double kv = M_PI * (m->t_start + (double)i * m->dt) * m->inv_length;
-        double r0 = m->c[i], r1 = -a * m->s[i], r2 = 2 * kv * r1, r3 = -a * kv * r0;
-        s00 += r0 * r0, s10 += r1 * r0, s11 += r1 * r1;
-        s20 += r2 * r0, s21 += r2 * r1, s22 += r2 * r2;
-        s30 += r3 * r0, s31 += r3 * r1, s32 += r3 * r2, s33 += r3 * r3;
-        if (u) {
-            double ui = u->data[i * u->stride];
-            u0 += r0 * ui, u1 += r1 * ui, u2 += r2 * ui, u3 += r3 * ui;
+        for (size_t l = 0; l <= k; l++) {
+            double sum[2][2][3];
+            pair_sums(m, k, l, sum);
+            for (size_t j = 0; j < NPAR; j++)
+                for (size_t jl = 0; jl < NPAR && (l < k || jl <= j); jl++)
+                    jtj[(NPAR * k + j) * MAXP + NPAR * l + jl] =
+                        alpha_of(x, k, j) * alpha_of(x, l, jl) *
+                        sum[basis_of[j]][basis_of[jl]][power_of[j] + power_of[jl]];
         }
-    }
-    double lower[4][4] = {{s00}, {s10, s11}, {s20, s21, s22}, {s30, s31, s32, s33}};
-    for (size_t j = 0; j < 4; j++)
-        for (size_t l = 0; l <= j; l++) jtj[j * MAXP + l] = lower[j][l];
-    jtu[0] = u0, jtu[1] = u1, jtu[2] = u2, jtu[3] = u3;
-}
-
-/* The same for any number of lines. */
-static void normal_lines(const model *m, const double *x, const gsl_vector *u, double *jtj,
-                         double *jtu) {
-    size_t p = NPAR * m->nlines;
-    double row[MAXP];
-    memset(jtu, 0, p * sizeof *jtu);
-    for (size_t j = 0; j < p; j++) memset(jtj + j * MAXP, 0, (j + 1) * sizeof *jtj);
-    for (size_t i = 0; i < m->n; i++) {
-        jacobian_row(m, x, i, row);
-        if (u) {
-            double ui = u->data[i * u->stride];
-            for (size_t j = 0; j < p; j++) jtu[j] += row[j] * ui;
-        }
-        for (size_t j = 0; j < p; j++)
-            for (size_t l = 0; l <= j; l++) jtj[j * MAXP + l] += row[j] * row[l];
+        if (u) line_times(m, x, k, u, jtu);
     }
 }
 
@@ -200,7 +209,7 @@ static void jacobian_times(const model *m, const double *x, const gsl_vector *u,
                uv = uk[3 * u->stride];
         const double *c = m->c + k * m->n, *s = m->s + k * m->n;
         for (size_t i = 0; i < m->n; i++) {
-            double kv = M_PI * (m->t_start + (double)i * m->dt) * m->inv_length;
+            double kv = m->kv[i];
             /* row . u = c ua - a s up - a s 2 kv uu - a c kv uv */
             out[i * stride] += c[i] * (ua - a * kv * uv) - a * s[i] * (up + 2 * kv * uu);
         }
@@ -219,8 +228,7 @@ static int model_df(CBLAS_TRANSPOSE_t trans, const gsl_vector *xv, const gsl_vec
     if (v && trans == CblasNoTrans) jacobian_times(m, x, u, v);
     if (!JTJ && !(v && trans == CblasTrans)) return GSL_SUCCESS;
     const gsl_vector *back = v && trans == CblasTrans ? u : NULL;
-    if (m->nlines == 1) normal_one_line(m, x, back, m->jtj, m->g);
-    else normal_lines(m, x, back, m->jtj, m->g);
+    normal_equations(m, x, back, m->jtj, m->g);
     memcpy(m->normal_x, x, p * sizeof *x);
     m->normal = back != NULL;
     if (back)
@@ -254,10 +262,11 @@ static space_slot *slot_for(an_fit_space **space, size_t n, size_t nlines) {
     sl->eigen = gsl_eigen_symmv_alloc(p);
     sl->c = malloc(n * nlines * sizeof *sl->c);
     sl->s = malloc(n * nlines * sizeof *sl->s);
+    sl->kv = malloc(n * sizeof *sl->kv);
     sl->n = n;
     sl->nlines = nlines;
     if (!sl->w || !sl->jtj || !sl->evec || !sl->covar || !sl->eval || !sl->eigen || !sl->c ||
-        !sl->s) {
+        !sl->s || !sl->kv) {
         slot_free(sl);
         if (i + 1 == fs->used) fs->used--;
         return NULL;
@@ -298,8 +307,7 @@ static int decompose(space_slot *sl, model *m, const gsl_vector *x, const gsl_ve
     size_t p = NPAR * m->nlines;
     if (!m->normal || memcmp(m->normal_x, x->data, p * sizeof *m->normal_x) != 0) {
         if (oscillate(m, x->data)) return -1;
-        if (m->nlines == 1) normal_one_line(m, x->data, f, m->jtj, m->g);
-        else normal_lines(m, x->data, f, m->jtj, m->g);
+        normal_equations(m, x->data, f, m->jtj, m->g);
         memcpy(m->normal_x, x->data, p * sizeof *m->normal_x);
         m->normal = true;
     }
@@ -424,7 +432,8 @@ int an_fit_lines_in(an_fit_space **space, const double *y, size_t n, double rate
     if (!sl) return -1;
     model m = {.y = y, .n = n, .nlines = nlines, .rate = rate, .t_start = t_start,
                .length = (double)n / rate, .inv_ys = 1.0 / ys, .dt = 1.0 / rate,
-               .inv_length = rate / (double)n, .c = sl->c, .s = sl->s};
+               .inv_length = rate / (double)n, .c = sl->c, .s = sl->s, .kv = sl->kv};
+    for (size_t i = 0; i < n; i++) m.kv[i] = M_PI * (t_start + (double)i * m.dt) * m.inv_length;
     double x0[MAXP];
     for (size_t k = 0; k < nlines; k++) {
         m.f_start[k] = start[k].frequency;

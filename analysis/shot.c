@@ -17,6 +17,8 @@
 #define PEAK_SEPARATION 2.0     /* natural bins between two peaks, at least */
 #define NOISE_GUARD 10.0        /* linewidths (at least natural bins) left out of the noise */
 #define MEDIAN_BINS 4096       /* bins the first noise estimate looks at */
+#define PROMINENCE_REACH 50.0  /* natural bins a peak's surroundings span, at most */
+#define LEAKAGE_MARGIN 3.0     /* a weaker peak must beat a stronger one's leakage by this */
 #define BROAD_LINE 4.0          /* natural bins: a line at least this wide is resolved */
 
 static int say(char *err, size_t errlen, const char *fmt, ...) {
@@ -124,29 +126,67 @@ static bool on_harmonic(const an_mains *mains, double f, double guard) {
     return false;
 }
 
-/* The strongest peak of sp above min_snr times its noise, on no mains
- * harmonic and clear of the lines already fitted (whose misfit a residual
- * shows); false when there is none. */
-static bool next_peak(const an_trace *tr, const an_spectrum *sp, double *buf,
-                      const an_mains *mains, double min_snr, const an_line_fit *lines,
-                      size_t nl, double *frequency, double *height) {
-    double res = tr->rate / (double)tr->n, f[MAX_PEAKS], h[MAX_PEAKS];
+/* How far the peak at f stands out: its height above the higher of the
+ * lowest points between it and a higher bin (or reach Hz) on each side.
+ * Noise riding on a strong line's skirt makes local maxima that stand out
+ * by about the noise only. */
+static double prominence(const an_spectrum *sp, double f, double reach) {
+    size_t k = (size_t)llround(f / sp->df), limit = (size_t)ceil(reach / sp->df);
+    if (k >= sp->n) return 0;
+    double top = hypot(sp->re[k], sp->im[k]), col = 0;
+    for (int side = 0; side < 2; side++) {
+        double low = top;
+        for (size_t j = k, steps = 0; steps < limit; steps++) {
+            if (side ? j + 1 >= sp->n : j == 0) break;
+            j = side ? j + 1 : j - 1;
+            double m = hypot(sp->re[j], sp->im[j]);
+            if (m > top) break;
+            if (m < low) low = m;
+        }
+        if (low > col) col = low;
+    }
+    return (top - col) * sp->scale;
+}
+
+/* Whether a peak of height h at f could be the leakage of the stronger
+ * peak at f0 of height h0 and half width at half height hw: a record's
+ * ends give every line sidelobes of 1 / (pi k) at k natural bins, and a
+ * Lorentzian's magnitude falls as (half width) / (distance). Such a peak is
+ * left for the search in the residual, where the stronger line is gone. */
+static bool in_leakage(double f, double h, double f0, double h0, double hw, double res) {
+    double d = fabs(f - f0);
+    if (d <= 0) return true;
+    return h < LEAKAGE_MARGIN * h0 * fmax(res / (M_PI * d), hw / d);
+}
+
+/* Up to max peaks of sp, strongest first, above min_snr times its noise
+ * and standing out by as much, on no mains harmonic, clear of the lines
+ * already fitted (whose misfit a residual shows) and of the leakage of the
+ * stronger peaks taken. */
+static size_t peaks_of(const an_trace *tr, const an_spectrum *sp, double *buf,
+                       const an_mains *mains, double min_snr, const an_line_fit *lines,
+                       size_t nl, size_t max, double *frequency, double *height) {
+    double res = tr->rate / (double)tr->n, f[MAX_PEAKS], h[MAX_PEAKS], hw[AN_MAX_LINES];
     double noise = first_noise(sp, (size_t)ceil(PEAK_GUARD * res / sp->df) + 1, buf);
-    if (!(noise > 0)) return false;
+    if (!(noise > 0)) return 0;
     size_t found = an_find_peaks(sp, min_snr * noise, PEAK_SEPARATION * res, PEAK_GUARD * res,
-                                 MAX_PEAKS, f, h);
-    for (size_t k = 0; k < found; k++) {
-        if (on_harmonic(mains, f[k], PEAK_GUARD * res)) continue;
+                                 MAX_PEAKS, f, h), kept = 0;
+    for (size_t k = 0; k < found && kept < max && kept < AN_MAX_LINES; k++) {
+        if (on_harmonic(mains, f[k], PEAK_GUARD * res) ||
+            prominence(sp, f[k], PROMINENCE_REACH * res) < min_snr * noise)
+            continue;
         size_t j = 0;
         while (j < nl && fabs(f[k] - lines[j].frequency) >
                              fmax(PEAK_SEPARATION * res, fabs(lines[j].linewidth)))
             j++;
-        if (j < nl) continue;
-        *frequency = f[k];
-        *height = h[k];
-        return true;
+        size_t i = 0;
+        while (i < kept && !in_leakage(f[k], h[k], frequency[i], height[i], hw[i], res)) i++;
+        if (j < nl || i < kept) continue;
+        frequency[kept] = f[k];
+        height[kept] = h[k];
+        hw[kept++] = 0.5 * half_width(sp, f[k], h[k], PROMINENCE_REACH * res);
     }
-    return false;
+    return kept;
 }
 
 /* ---- SNR ----------------------------------------------------------------------------- */
@@ -196,38 +236,39 @@ static size_t fit(an_work *w, const an_trace *tr, double t_start, an_line_fit *s
     return 0;
 }
 
-/* Lines one at a time: the strongest peak, a fit, then the strongest peak
- * of what the fit leaves and a fit of all lines again, up to max. A line's
- * skirt thus never passes for lines of its own. Returns the lines fitted;
- * *tried is the first peak's frequency, NAN when there was none to fit.
- * buf: n + sp->n values. */
+/* The peaks that stand out, fitted together; then, while there is room,
+ * the strongest peak of what the fit leaves, and all lines fitted again.
+ * Returns the lines fitted; *tried is the first peak's frequency, NAN when
+ * there was none to fit; *again is set when sp was overwritten by a
+ * residual's spectrum. buf: n + sp->n values. */
 static size_t find_lines(an_work *w, const an_trace *tr, an_spectrum *sp, double *buf,
-                         const an_settings *s, double t_start, an_shot *out, double *tried) {
+                         const an_settings *s, double t_start, an_shot *out, double *tried,
+                         bool *again) {
     an_line_fit start[AN_MAX_LINES], fitted[AN_MAX_LINES];
-    double f, h, *resid = buf;
-    size_t nl = 0;
+    double f[AN_MAX_LINES], h[AN_MAX_LINES], *resid = buf;
     *tried = NAN;
-    if (!s->max_lines || !next_peak(tr, sp, buf, &out->mains, s->min_snr, NULL, 0, &f, &h))
-        return 0;
-    *tried = f;
-    start[0] = start_value(tr, sp, f, h, t_start);
-    for (;;) {
+    *again = false;
+    size_t np = peaks_of(tr, sp, buf, &out->mains, s->min_snr, NULL, 0, s->max_lines, f, h);
+    if (!np) return 0;
+    *tried = f[0];
+    for (size_t k = 0; k < np; k++) start[k] = start_value(tr, sp, f[k], h[k], t_start);
+    size_t nl = fit(w, tr, t_start, start, np, out->lines, &out->rms);
+    while (nl && nl < s->max_lines) {
+        an_lines_subtract(out->lines, nl, tr->rate, t_start, tr->y, tr->n, resid);
+        an_trace rt = *tr;
+        rt.y = resid;
+        *again = true;
+        if (an_spectrum_of(w, resid, tr->n, tr->rate, 0, s->zero_fill, sp) ||
+            !peaks_of(&rt, sp, buf + tr->n, &out->mains, s->min_snr, out->lines, nl, 1, f, h))
+            break;
+        memcpy(start, out->lines, nl * sizeof *start);
+        start[nl] = start_value(&rt, sp, f[0], h[0], t_start);
         double rms;
         if (an_fit_lines_in(an_work_fit_space(w), tr->y, tr->n, tr->rate, t_start, start,
                             nl + 1, fitted, &rms))
             break;
-        nl++;
-        memcpy(out->lines, fitted, nl * sizeof *fitted);
-        memcpy(start, fitted, nl * sizeof *fitted);
+        memcpy(out->lines, fitted, ++nl * sizeof *fitted);
         out->rms = rms;
-        if (nl >= s->max_lines) break;
-        an_lines_subtract(fitted, nl, tr->rate, t_start, tr->y, tr->n, resid);
-        an_trace rt = *tr;
-        rt.y = resid;
-        if (an_spectrum_of(w, resid, tr->n, tr->rate, 0, s->zero_fill, sp) ||
-            !next_peak(&rt, sp, buf + tr->n, &out->mains, s->min_snr, fitted, nl, &f, &h))
-            break;
-        start[nl] = start_value(&rt, sp, f, h, t_start);
     }
     return nl;
 }
@@ -288,14 +329,15 @@ int an_reduce(an_work *w, const an_record *r, const an_settings *s, an_shot *out
     an_spectrum sp;
     double *buf = NULL;
     double tried;
+    bool again;
     if (an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, s->zero_fill, &sp) ||
         !(buf = an_work_scratch(w, tr.n + sp.n)))
         return say(err, errlen, "shot %d: out of memory for the spectrum", r->shot);
-    size_t nl = find_lines(w, &tr, &sp, buf, s, t_start, out, &tried);
+    size_t nl = find_lines(w, &tr, &sp, buf, s, t_start, out, &tried, &again);
     if (!isnan(tried) && !nl)
         return say(err, errlen, "shot %d: the fit of the line near %g Hz did not converge",
                    r->shot, tried);
-    if (nl && an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, s->zero_fill, &sp))
+    if (again && an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, s->zero_fill, &sp))
         return say(err, errlen, "shot %d: out of memory for the spectrum", r->shot);
     out->nlines = grade(w, &tr, &sp, t_start, s, out, nl);
     if (!out->nlines) {
