@@ -2,7 +2,13 @@
  * an_record: the root attributes, /parameters, /currents, /fields, the first
  * pulse's end and the first acquisition's first input with its attributes.
  * Not for writing records (sequencer/store.c), nor for the events table,
- * later acquisitions or other inputs, which the per-shot analysis ignores. */
+ * later acquisitions or other inputs, which the per-shot analysis ignores.
+ *
+ * "First" is in creation order where a file tracks it; precess's records do
+ * not, so it is the first by name (HDF5's own order), as for /parameters.
+ * Like the store, this is serial HDF5: not to be called while another
+ * thread of the process is in HDF5 (the store's writer takes a lock of its
+ * own, which this module cannot see). */
 #include "analysis.h"
 
 #include <errno.h>

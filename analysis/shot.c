@@ -2,7 +2,16 @@
  * noise, spectrum, peaks, starting values, fit, SNR), and the coherent
  * average of the records of one point. Not for reading records (record.c),
  * nor for the spectra and fits themselves (spectrum.c, fit.c), nor for fits
- * across points (series.c). */
+ * across points (series.c).
+ *
+ * Choices where the specification is silent: the spectrum for peaks and SNR
+ * is unapodized and zero filled as the settings say; "a natural bin" is the
+ * record's resolution rate / n; a line's band left out of the noise is +-10
+ * linewidths but never less than +-10 natural bins (a line narrower than a
+ * bin is a bin wide in the spectrum), mains harmonics and 0 Hz get +-10
+ * natural bins; a line's height is the largest |spectrum| within one natural
+ * bin of its fitted frequency; lines come strongest (largest amplitude)
+ * first. An average keeps the first record's shot, point and parameters. */
 #include "analysis_internal.h"
 
 #include <gsl/gsl_statistics_double.h>
@@ -16,9 +25,9 @@
 #define PEAK_GUARD 3.0          /* natural bins (rate / n) kept clear of 0 Hz and mains */
 #define PEAK_SEPARATION 2.0     /* natural bins between two peaks, at least */
 #define NOISE_GUARD 10.0        /* linewidths (at least natural bins) left out of the noise */
-#define MEDIAN_BINS 4096       /* bins the first noise estimate looks at */
-#define PROMINENCE_REACH 50.0  /* natural bins a peak's surroundings span, at most */
-#define LEAKAGE_MARGIN 3.0     /* a weaker peak must beat a stronger one's leakage by this */
+#define MEDIAN_BINS 4096        /* bins the first noise estimate looks at */
+#define PROMINENCE_REACH 50.0   /* natural bins a peak's surroundings span, at most */
+#define LEAKAGE_MARGIN 3.0      /* a weaker peak must beat a stronger one's leakage by this */
 #define BROAD_LINE 4.0          /* natural bins: a line at least this wide is resolved */
 
 static int say(char *err, size_t errlen, const char *fmt, ...) {
@@ -239,15 +248,13 @@ static size_t fit(an_work *w, const an_trace *tr, double t_start, an_line_fit *s
 /* The peaks that stand out, fitted together; then, while there is room,
  * the strongest peak of what the fit leaves, and all lines fitted again.
  * Returns the lines fitted; *tried is the first peak's frequency, NAN when
- * there was none to fit; *again is set when sp was overwritten by a
- * residual's spectrum. buf: n + sp->n values. */
+ * there was none to fit. sp is left holding the last residual's spectrum.
+ * buf: n + sp->n values. */
 static size_t find_lines(an_work *w, const an_trace *tr, an_spectrum *sp, double *buf,
-                         const an_settings *s, double t_start, an_shot *out, double *tried,
-                         bool *again) {
+                         const an_settings *s, double t_start, an_shot *out, double *tried) {
     an_line_fit start[AN_MAX_LINES], fitted[AN_MAX_LINES];
     double f[AN_MAX_LINES], h[AN_MAX_LINES], *resid = buf;
     *tried = NAN;
-    *again = false;
     size_t np = peaks_of(tr, sp, buf, &out->mains, s->min_snr, NULL, 0, s->max_lines, f, h);
     if (!np) return 0;
     *tried = f[0];
@@ -257,7 +264,6 @@ static size_t find_lines(an_work *w, const an_trace *tr, an_spectrum *sp, double
         an_lines_subtract(out->lines, nl, tr->rate, t_start, tr->y, tr->n, resid);
         an_trace rt = *tr;
         rt.y = resid;
-        *again = true;
         if (an_spectrum_of(w, resid, tr->n, tr->rate, 0, s->zero_fill, sp) ||
             !peaks_of(&rt, sp, buf + tr->n, &out->mains, s->min_snr, out->lines, nl, 1, f, h))
             break;
@@ -316,6 +322,9 @@ int an_reduce(an_work *w, const an_record *r, const an_settings *s, an_shot *out
                    s->window_to, &tr))
         return say(err, errlen, "shot %d: the window from %g s to %g s leaves fewer than 16 "
                    "of the record's %zu samples", r->shot, s->window_from, s->window_to, r->n);
+    if (!isfinite(tr.dc))
+        return say(err, errlen, "shot %d: the record holds samples that are not finite "
+                   "numbers (NaN or infinite) in the window", r->shot);
     if (s->line_noise > 0 &&
         an_remove_mains(tr.y, tr.n, tr.rate, s->line_noise, 0.5, &out->mains))
         return say(err, errlen, "shot %d: line noise at %g Hz could not be removed (is it "
@@ -326,19 +335,20 @@ int an_reduce(an_work *w, const an_record *r, const an_settings *s, an_shot *out
     out->n = tr.n;
     out->rate = tr.rate;
     double t_start = tr.t_first - out->t_ref;
-    an_spectrum sp;
-    double *buf = NULL;
-    double tried;
-    bool again;
+    an_spectrum sp, first;
+    double *buf = NULL, tried;
     if (an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, s->zero_fill, &sp) ||
-        !(buf = an_work_scratch(w, tr.n + sp.n)))
+        !(buf = an_work_scratch(w, tr.n + 3 * sp.n)))
         return say(err, errlen, "shot %d: out of memory for the spectrum", r->shot);
-    size_t nl = find_lines(w, &tr, &sp, buf, s, t_start, out, &tried, &again);
+    /* kept aside: the search in the residual takes spectra of its own */
+    first = sp;
+    first.re = memcpy(buf + tr.n + sp.n, sp.re, sp.n * sizeof *sp.re);
+    first.im = memcpy(buf + tr.n + 2 * sp.n, sp.im, sp.n * sizeof *sp.im);
+    size_t nl = find_lines(w, &tr, &sp, buf, s, t_start, out, &tried);
     if (!isnan(tried) && !nl)
         return say(err, errlen, "shot %d: the fit of the line near %g Hz did not converge",
                    r->shot, tried);
-    if (again && an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, s->zero_fill, &sp))
-        return say(err, errlen, "shot %d: out of memory for the spectrum", r->shot);
+    sp = first;
     out->nlines = grade(w, &tr, &sp, t_start, s, out, nl);
     if (!out->nlines) {
         out->noise = band_noise(&tr, &sp, &out->mains, NULL, 0);

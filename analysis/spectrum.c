@@ -2,7 +2,10 @@
  * applied), its spectrum through FFTW with plans kept per length, peaks and
  * the noise rms of a spectrum; and the quick strongest-line estimate of the
  * run's progress line. Not for fitting lines (fit.c) nor for line noise
- * (mains.c). */
+ * (mains.c).
+ *
+ * Plans are FFTW_ESTIMATE: FFTW_MEASURE would take ~0.9 s to plan 32768
+ * points for 0.04 ms saved a transform. an_find_peaks gives at most 64. */
 #include "analysis_internal.h"
 
 #include <fftw3.h>
@@ -293,6 +296,10 @@ size_t an_find_peaks(const an_spectrum *s, double min_height, double min_separat
 /* Bins [lo, hi] within e Hz of c (hi < lo when none). */
 static void band(const an_spectrum *s, double c, double e, long *lo, long *hi) {
     double a = ceil((c - e) / s->df - 1e-9), b = floor((c + e) / s->df + 1e-9);
+    if (!isfinite(a) || !isfinite(b)) {
+        *lo = 1, *hi = 0;
+        return;
+    }
     *lo = a < 0 ? 0 : a > (double)s->n ? (long)s->n : (long)a;
     *hi = b < -1 ? -1 : b >= (double)s->n ? (long)s->n - 1 : (long)b;
 }

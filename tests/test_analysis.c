@@ -544,6 +544,10 @@ static void test_reduce_refuses_with_a_message(void **state) {
     s.zero_fill = 0;
     assert_int_equal(an_reduce(w, &r, &s, &out, err, sizeof err), -1);
     assert_non_null(strstr(err, "zero_fill"));
+    an_settings_default(&s);
+    r.samples[500] = NAN;
+    assert_int_equal(an_reduce(w, &r, &s, &out, err, sizeof err), -1);
+    assert_non_null(strstr(err, "not finite"));
     an_record_free(&r);
     memset(&r, 0, sizeof r);
     an_settings_default(&s);
