@@ -333,4 +333,85 @@ int an_export_jcamp_spectrum(const char *path, const an_jcamp_meta *m, const dou
  * units) per sample. */
 int an_export_csv_record(const char *path, const an_record *r, char *err, size_t errlen);
 
+/* ---- a run folder reduced (run.c; its files: report.c) ------------------ */
+
+typedef enum { AN_SERIES_NONE, AN_SERIES_RELAXATION, AN_SERIES_BUILDUP,
+               AN_SERIES_CALIBRATION } an_series_kind;
+
+/* What the plan's analysis: section asks, in plain values (the command line
+ * reads the plan). */
+typedef struct {
+    an_series_kind fit;
+    const char *against;        /* a scan variable's name, or NULL */
+    const char *against_coil;   /* against: {current: COIL}: the coil, or NULL */
+    const char *per;            /* a scan variable's name, or NULL: one fit */
+    const char *against_unit, *per_unit;    /* SI unit symbols: "s", "T", "A", "" */
+    size_t nvars;                           /* every scan variable's unit, for titles */
+    const char *const *var_name, *const *var_unit;
+    const char *nucleus;        /* the sample's default nucleus, "1H" */
+    double gamma_hz;            /* its |gamma| / 2pi, Hz/T */
+    an_settings settings;
+} an_plan;
+
+typedef struct {
+    int shot, point, average;
+    char kind[16];              /* scan, warmup, reference */
+    char file[80];              /* relative to the run folder */
+    bool reduced;               /* false: error says why */
+    char error[320];
+    an_shot result;
+    double x;                   /* the series' x at this shot; NAN: none */
+    double field;               /* the solved field at the sample place, T; NAN */
+} an_shot_entry;
+
+typedef struct {
+    int point;
+    size_t nshots;              /* its scan shots analysed */
+    double *parameters;         /* one per name of an_run.parameter */
+    double x, per, field;       /* NAN when not known */
+    bool reduced;
+    char error[320];
+    an_shot result;             /* of the point's coherent average */
+    int line;                   /* the line the series follows (index into
+                                 * result.lines), -1: none */
+} an_point_entry;
+
+typedef struct {
+    an_series_kind fit;
+    double per;                 /* the per value; NAN: one fit for all */
+    bool fitted;                /* false: too few points or no convergence */
+    an_decay_fit decay;         /* relaxation, buildup */
+    an_calibration_fit calibration;
+    size_t n;
+    an_point *data;             /* the points fitted: x, y, y_err */
+} an_series_entry;
+
+typedef struct {
+    char dir[4096];
+    char id[AN_NAME], title[256], units[16];
+    size_t planned;             /* shots in the plan */
+    size_t nparameters;
+    char (*parameter)[AN_NAME]; /* scan variables, as points.json has them */
+    size_t nshots, npoints, nseries;
+    an_shot_entry *shots;       /* every ok record in the journal, by shot */
+    an_point_entry *points;     /* every point with a scan shot, by point */
+    an_series_entry *series;
+} an_run;
+
+/* Open a run folder: its journal (complete lines only, so a run still
+ * going or cut off is read as far as it got) and points.json. Returns 0
+ * and *out (an_run_free), or -1 with a message in err. */
+int an_run_open(const char *dir, an_run **out, char *err, size_t errlen);
+/* Reduce every shot, every point's average and the series the plan asks
+ * for. A record that cannot be read is kept with its error, not fatal.
+ * Returns 0, or -1 with a message in err (out of memory). */
+int an_run_reduce(an_run *r, const an_plan *p, char *err, size_t errlen);
+void an_run_free(an_run *r);
+/* The coherent average of point's scan shots (read again from their
+ * records) into out (an_record_free). Returns 0, or -1 with a message. */
+int an_run_point_average(const an_run *r, int point, an_record *out, char *err, size_t errlen);
+/* RUN/analysis/: shots.csv, points.csv, fits.csv and the plots, each file
+ * written whole. Returns 0, or -1 with a message in err. */
+int an_run_write(const an_run *r, const an_plan *p, char *err, size_t errlen);
+
 #endif

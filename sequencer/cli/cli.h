@@ -4,6 +4,7 @@
 #define PRECESS_CLI_H
 
 #include <stdio.h>
+#include "analysis.h"
 #include "compile.h"
 #include "plan.h"
 #include "scan.h"
@@ -44,7 +45,29 @@ int cli_draw_diagram(const compiled *c, uint32_t shot, const char *path, char *e
 /* A run's length for people: "45 s", "12 min 5 s", "3 h 02 min". */
 const char *cli_duration(double seconds, char *buf, size_t n);
 
+/* The plan of a run folder, read with the folder's own rig copy (its
+ * diagnostics printed); NULL when it cannot be read. */
+plan *cli_run_plan(const char *dir, diag_list *d);
+/* What the plan's analysis: section asks, as the analysis takes it. */
+int cli_analysis_plan(const plan *p, an_plan *out);
+
+/* Values to replace in a rig file (rig_rewrite.c), as the text to write. */
+typedef struct {
+    const char *place;                  /* places.PLACE and residual.PLACE */
+    size_t ncoils;
+    const char *const *coil;            /* places.PLACE.COIL ... */
+    const char *const *coefficient_text;    /* ... becomes this ("151.2 uT/A") */
+    const char *residual_text[3];       /* residual.PLACE becomes [x, y, z] */
+} rig_changes;
+/* The rig file's bytes with ch applied, as YAML to out (comments are not
+ * kept). Returns 0, or -1 with a message in err. */
+int rig_rewrite(const char *bytes, size_t len, FILE *out, const rig_changes *ch, char *err,
+                size_t errlen);
+
 int cmd_check(int argc, char **argv);
+int cmd_analyze(int argc, char **argv);
+int cmd_calibrate(int argc, char **argv);
+int cmd_export(int argc, char **argv);
 int cmd_preview(int argc, char **argv);
 int cmd_run(int argc, char **argv);
 int cmd_help(int argc, char **argv);

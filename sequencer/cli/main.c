@@ -48,12 +48,29 @@ static const cli_command commands[] = {
      "3 interrupted, 4 hardware fault; the outputs end safe on every path.\n"},
     {"resume", cmd_later, "finish an interrupted run", "usage: precess resume RUN\n"},
     {"verify", cmd_later, "check that a run folder is whole", "usage: precess verify RUN\n"},
-    {"analyze", cmd_later, "reduce a run to spectra, fits and plots",
-     "usage: precess analyze RUN [--json]\n"},
-    {"calibrate", cmd_later, "write a corrected rig from a calibration run",
-     "usage: precess calibrate RUN --rig RIG\n"},
-    {"export", cmd_later, "export records as CSV or JCAMP-DX",
-     "usage: precess export RUN --to csv|jcamp [--shot N]\n"},
+    {"analyze", cmd_analyze, "reduce a run to spectra, fits and plots",
+     "usage: precess analyze RUN [--json]\n\n"
+     "Reduces every recorded shot of the run folder RUN (window, line noise, spectrum,\n"
+     "damped-sinusoid fit of every line), every point's coherent average, and the\n"
+     "series the plan's analysis: section asks for (relaxation, buildup or\n"
+     "calibration fits, one per `per` value, and the dispersion profile). Writes\n"
+     "RUN/analysis/: shots.csv, points.csv, fits.csv, and PNG and SVG plots. Works on\n"
+     "a run still going or interrupted: it analyses the shots the journal has.\n\n"
+     "  --json   print the results as one JSON document on stdout\n"},
+    {"calibrate", cmd_calibrate, "write a corrected rig from a calibration run",
+     "usage: precess calibrate RUN --rig RIG\n\n"
+     "Fits the line frequency of RUN against its field setpoint or coil current (the\n"
+     "plan's analysis: {fit: calibration}) and writes RIG's corrected copy next to it\n"
+     "(NAME-calibrated.yaml): the field per ampere of the coils at the sample place and\n"
+     "the residual field there. Prints the old and new values side by side. RIG\n"
+     "itself is not changed.\n"},
+    {"export", cmd_export, "export records as CSV or JCAMP-DX",
+     "usage: precess export RUN --to csv|jcamp [--shot N]\n\n"
+     "Writes every recorded shot of RUN (or shot N) into RUN/analysis/export/:\n"
+     "  --to csv     shot-NNNNNN.csv, time (s from the shot's start) and value per sample\n"
+     "  --to jcamp   shot-NNNNNN-fid.jdx (the record times its receiver sign) and\n"
+     "               shot-NNNNNN-spectrum.jdx (after the plan's window and line-noise\n"
+     "               removal), JCAMP-DX 5.01 files any NMR program can open\n"},
     {"probe", cmd_later, "list what a rig's DAQ device offers", "usage: precess probe RIG\n"},
     {"help", cmd_help, "show the commands, or one command's usage",
      "usage: precess help [COMMAND]\n"},

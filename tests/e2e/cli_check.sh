@@ -91,6 +91,6 @@ $P check --json "$T/ok.yaml" "$T/bad.yaml" 2>/dev/null >/dev/null; [ $? = 2 ] \
 printf 'title: just a title\n' > "$T/neither.yaml"
 $P check "$T/neither.yaml" 2>"$T/err"; [ $? = 2 ] || fail "neither file exit"
 grep -q "neither a plan" "$T/err" || fail "neither file message"
-$P analyze "$T/ok.yaml" 2>"$T/err"; [ $? = 2 ] || fail "analyze not yet available must exit 2"
-grep -q "not available in this version yet" "$T/err" || fail "analyze not yet available message"
+$P resume "$T/ok.yaml" 2>"$T/err"; [ $? = 2 ] || fail "resume not yet available must exit 2"
+grep -q "not available in this version yet" "$T/err" || fail "resume not yet available message"
 exit 0
