@@ -11,7 +11,9 @@
  * bin is a bin wide in the spectrum), mains harmonics and 0 Hz get +-10
  * natural bins; a line's height is the largest |spectrum| within one natural
  * bin of its fitted frequency; lines come strongest (largest amplitude)
- * first. An average keeps the first record's shot, point and parameters. */
+ * first. min_snr is the test of a peak when it is found, against a noise
+ * that skirts do not reach (first_noise), not of the reported SNR (grade).
+ * An average keeps the first record's shot, point and parameters. */
 #include "analysis_internal.h"
 
 #include <gsl/gsl_statistics_double.h>
