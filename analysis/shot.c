@@ -11,7 +11,9 @@
  * bin is a bin wide in the spectrum), mains harmonics and 0 Hz get +-10
  * natural bins; a line's height is the largest |spectrum| within one natural
  * bin of its fitted frequency; lines come strongest (largest amplitude)
- * first. An average keeps the first record's shot, point and parameters. */
+ * first. min_snr is the test of a peak when it is found, against a noise
+ * that skirts do not reach (first_noise), not of the reported SNR (grade).
+ * An average keeps the first record's shot, point and parameters. */
 #include "analysis_internal.h"
 
 #include <gsl/gsl_statistics_double.h>
@@ -117,16 +119,25 @@ static an_line_fit start_value(const an_trace *tr, const an_spectrum *sp, double
 
 /* ---- peaks ------------------------------------------------------------------------ */
 
-/* rms of |spectrum| from the median power, which lines barely move: the
- * power of complex Gaussian noise is exponential, median = mean ln 2. For
- * speed the median is of at most MEDIAN_BINS bins spread evenly (a 2 %
- * estimate, for a threshold). buf holds sp->n values. */
-static double first_noise(const an_spectrum *sp, size_t skip, double *buf) {
-    if (skip >= sp->n) return NAN;
-    size_t stride = (sp->n - skip + MEDIAN_BINS - 1) / MEDIAN_BINS, m = 0;
-    for (size_t k = skip; k < sp->n; k += stride)
-        buf[m++] = sp->re[k] * sp->re[k] + sp->im[k] * sp->im[k];
-    return sp->scale * sqrt(gsl_stats_median(buf, 1, m) / M_LN2);
+/* rms of |spectrum| for a threshold, from the median power of differences
+ * of bins one natural bin (or just over) apart. Noise there is independent
+ * (the difference has twice its power), while a line's smooth skirt, which
+ * can cover the whole band of a short record, nearly cancels; narrow lines
+ * are too few bins to move a median. The power of complex Gaussian noise is
+ * exponential, median = mean ln 2. For speed the median is of at most
+ * MEDIAN_BINS differences spread evenly (a 2 % estimate). buf holds sp->n
+ * values. */
+static double first_noise(const an_trace *tr, const an_spectrum *sp, size_t skip, double *buf) {
+    size_t lag = (size_t)ceil(tr->rate / (double)tr->n / sp->df - 1e-9);
+    if (lag < 1) lag = 1;
+    if (skip + lag >= sp->n) return NAN;
+    size_t count = sp->n - skip - lag;
+    size_t stride = (count + MEDIAN_BINS - 1) / MEDIAN_BINS, m = 0;
+    for (size_t k = skip; k + lag < sp->n; k += stride) {
+        double dr = sp->re[k + lag] - sp->re[k], di = sp->im[k + lag] - sp->im[k];
+        buf[m++] = dr * dr + di * di;
+    }
+    return sp->scale * sqrt(gsl_stats_median(buf, 1, m) / (2 * M_LN2));
 }
 
 static bool on_harmonic(const an_mains *mains, double f, double guard) {
@@ -176,7 +187,7 @@ static size_t peaks_of(const an_trace *tr, const an_spectrum *sp, double *buf,
                        const an_mains *mains, double min_snr, const an_line_fit *lines,
                        size_t nl, size_t max, double *frequency, double *height) {
     double res = tr->rate / (double)tr->n, f[MAX_PEAKS], h[MAX_PEAKS], hw[AN_MAX_LINES];
-    double noise = first_noise(sp, (size_t)ceil(PEAK_GUARD * res / sp->df) + 1, buf);
+    double noise = first_noise(tr, sp, (size_t)ceil(PEAK_GUARD * res / sp->df) + 1, buf);
     if (!(noise > 0)) return 0;
     size_t found = an_find_peaks(sp, min_snr * noise, PEAK_SEPARATION * res, PEAK_GUARD * res,
                                  MAX_PEAKS, f, h), kept = 0;
@@ -245,30 +256,52 @@ static size_t fit(an_work *w, const an_trace *tr, double t_start, an_line_fit *s
     return 0;
 }
 
-/* The peaks that stand out, fitted together; then, while there is room,
- * the strongest peak of what the fit leaves, and all lines fitted again.
- * Returns the lines fitted; *tried is the first peak's frequency, NAN when
- * there was none to fit. sp is left holding the last residual's spectrum.
- * buf: n + sp->n values. */
+/* The first lines: the peaks that stand out, fitted together. When none
+ * does, the spectrum may be all line (a line broad against the record's
+ * band leaves no noise beside it to measure): the strongest peak is then
+ * fitted on trial, and kept if it stands min_snr above the noise of what
+ * the fit leaves. *tried is the first peak's frequency when a fit of it
+ * failing is an error, else NAN. buf: n + sp->n values. */
+static size_t first_lines(an_work *w, const an_trace *tr, const an_spectrum *sp, double *buf,
+                          const an_settings *s, double t_start, an_shot *out, double *tried) {
+    an_line_fit start[AN_MAX_LINES];
+    double f[AN_MAX_LINES], h[AN_MAX_LINES], res = tr->rate / (double)tr->n;
+    *tried = NAN;
+    if (!s->max_lines) return 0;
+    size_t np = peaks_of(tr, sp, buf, &out->mains, s->min_snr, NULL, 0, s->max_lines, f, h);
+    bool trial = !np;
+    if (trial && !(np = peaks_of(tr, sp, buf, &out->mains, 0, NULL, 0, 1, f, h))) return 0;
+    for (size_t k = 0; k < np; k++) start[k] = start_value(tr, sp, f[k], h[k], t_start);
+    size_t nl = fit(w, tr, t_start, start, np, out->lines, &out->rms);
+    if (!trial) {
+        *tried = f[0];
+        return nl;
+    }
+    an_spectrum rs;
+    if (!nl) return 0;
+    an_lines_subtract(out->lines, 1, tr->rate, t_start, tr->y, tr->n, buf);
+    if (an_spectrum_of(w, buf, tr->n, tr->rate, 0, s->zero_fill, &rs)) return 0;
+    double noise = first_noise(tr, &rs, (size_t)ceil(PEAK_GUARD * res / rs.df) + 1, buf + tr->n);
+    return h[0] >= s->min_snr * noise ? 1 : 0;
+}
+
+/* The first lines, then, while there is room, the strongest peak of what
+ * the fit leaves, and all lines fitted again. Returns the lines fitted; sp
+ * is left holding the last residual's spectrum. buf: n + sp->n values. */
 static size_t find_lines(an_work *w, const an_trace *tr, an_spectrum *sp, double *buf,
                          const an_settings *s, double t_start, an_shot *out, double *tried) {
     an_line_fit start[AN_MAX_LINES], fitted[AN_MAX_LINES];
-    double f[AN_MAX_LINES], h[AN_MAX_LINES], *resid = buf;
-    *tried = NAN;
-    size_t np = peaks_of(tr, sp, buf, &out->mains, s->min_snr, NULL, 0, s->max_lines, f, h);
-    if (!np) return 0;
-    *tried = f[0];
-    for (size_t k = 0; k < np; k++) start[k] = start_value(tr, sp, f[k], h[k], t_start);
-    size_t nl = fit(w, tr, t_start, start, np, out->lines, &out->rms);
+    double f, h, *resid = buf;
+    size_t nl = first_lines(w, tr, sp, buf, s, t_start, out, tried);
     while (nl && nl < s->max_lines) {
         an_lines_subtract(out->lines, nl, tr->rate, t_start, tr->y, tr->n, resid);
         an_trace rt = *tr;
         rt.y = resid;
         if (an_spectrum_of(w, resid, tr->n, tr->rate, 0, s->zero_fill, sp) ||
-            !peaks_of(&rt, sp, buf + tr->n, &out->mains, s->min_snr, out->lines, nl, 1, f, h))
+            !peaks_of(&rt, sp, buf + tr->n, &out->mains, s->min_snr, out->lines, nl, 1, &f, &h))
             break;
         memcpy(start, out->lines, nl * sizeof *start);
-        start[nl] = start_value(&rt, sp, f[0], h[0], t_start);
+        start[nl] = start_value(&rt, sp, f, h, t_start);
         double rms;
         if (an_fit_lines_in(an_work_fit_space(w), tr->y, tr->n, tr->rate, t_start, start,
                             nl + 1, fitted, &rms))
@@ -279,24 +312,47 @@ static size_t find_lines(an_work *w, const an_trace *tr, an_spectrum *sp, double
     return nl;
 }
 
-/* Noise and SNR of the fitted lines; the lines below min_snr left out and
- * the rest fitted again, once. */
+/* Where the lines leave no signal-free band (broad lines over a short
+ * spectrum), the noise is the rms of the spectrum of what the fit leaves,
+ * away from 0 Hz and the mains harmonics. Not zero filled: the mean the
+ * trace lost with its DC (a strong line's own) is a constant in what the
+ * fit leaves, which zero filling would spread over every bin. buf: n
+ * values. */
+static double residual_noise(an_work *w, const an_trace *tr, double t_start,
+                             const an_shot *out, size_t nl, double *buf) {
+    an_lines_subtract(out->lines, nl, tr->rate, t_start, tr->y, tr->n, buf);
+    an_spectrum rs;
+    if (an_spectrum_of(w, buf, tr->n, tr->rate, 0, 1, &rs)) return NAN;
+    return band_noise(tr, &rs, &out->mains, NULL, 0);
+}
+
+/* Noise and SNR of the fitted lines. A line the fit moved out of (0 Hz,
+ * Nyquist) is left out and the rest fitted again, once. SNR does not leave
+ * lines out: min_snr was their test when found, against a noise measured
+ * where no skirt reaches (first_noise); the reported SNR is the
+ * specification's, whose bands +-10 linewidths away still hold the
+ * Lorentzian tails and sidelobes of strong lines, so it can be lower. sp
+ * must not be the work space's own spectrum (this may take others). buf: n
+ * values. */
 static size_t grade(an_work *w, const an_trace *tr, const an_spectrum *sp, double t_start,
-                    const an_settings *s, an_shot *out, size_t nl) {
+                    an_shot *out, size_t nl, double *buf) {
     for (int pass = 0; pass < 2; pass++) {
-        out->noise = band_noise(tr, sp, &out->mains, out->lines, nl);
         size_t kept = 0;
         an_line_fit keep[AN_MAX_LINES];
-        for (size_t k = 0; k < nl; k++) {
-            an_line_fit *l = &out->lines[k];
-            l->snr = height_at(tr, sp, l->frequency) / out->noise;
-            if (l->snr >= s->min_snr && l->frequency > 0 && l->frequency < 0.5 * tr->rate)
-                keep[kept++] = *l;
-        }
-        if (kept == nl || pass == 1) return nl;
-        nl = kept ? fit(w, tr, t_start, keep, kept, out->lines, &out->rms) : 0;
-        if (!nl) return 0;
+        for (size_t k = 0; k < nl; k++)
+            if (out->lines[k].frequency > 0 && out->lines[k].frequency < 0.5 * tr->rate)
+                keep[kept++] = out->lines[k];
+        if (kept < nl && pass == 0)
+            nl = kept ? fit(w, tr, t_start, keep, kept, out->lines, &out->rms) : 0;
+        else if (kept < nl)
+            memcpy(out->lines, keep, (nl = kept) * sizeof *keep);
+        else
+            break;
     }
+    out->noise = band_noise(tr, sp, &out->mains, out->lines, nl);
+    if (isnan(out->noise) && nl) out->noise = residual_noise(w, tr, t_start, out, nl, buf);
+    for (size_t k = 0; k < nl; k++)
+        out->lines[k].snr = height_at(tr, sp, out->lines[k].frequency) / out->noise;
     return nl;
 }
 
@@ -349,7 +405,7 @@ int an_reduce(an_work *w, const an_record *r, const an_settings *s, an_shot *out
         return say(err, errlen, "shot %d: the fit of the line near %g Hz did not converge",
                    r->shot, tried);
     sp = first;
-    out->nlines = grade(w, &tr, &sp, t_start, s, out, nl);
+    out->nlines = grade(w, &tr, &sp, t_start, out, nl, buf);
     if (!out->nlines) {
         out->noise = band_noise(&tr, &sp, &out->mains, NULL, 0);
         out->rms = sqrt(gsl_stats_tss_m(tr.y, 1, tr.n, 0) / (double)tr.n);

@@ -458,6 +458,31 @@ static void test_two_lines_are_resolved_strongest_first(void **state) {
     an_record_free(&r);
 }
 
+/* A line broad against the record's band: its skirt covers every bin, so
+ * no band is free of signal; and a broad line beside a strong narrow one,
+ * whose skirts and sidelobes fill the bands the specification's SNR uses. */
+static void test_broad_lines_are_found_where_skirts_fill_the_band(void **state) {
+    (void)state;
+    truth broad = {600, 3e-9, 0.5, 60};      /* +-10 W = +-600 Hz: past 0 and Nyquist */
+    an_record r = make_record(256, 2000, 1.0, 0.995, &broad, 1, 1e-12, 91);
+    an_settings s;
+    an_settings_default(&s);
+    an_shot out = reduce(&r, &s);
+    assert_int_equal(out.nlines, 1);
+    check_line(&out.lines[0], &broad, 3, "band-filling line");
+    /* the noise then comes from the fit's residual: 2 sigma / sqrt(n)
+     * (Parseval, by hand) */
+    check_close(out.noise, 2e-12 / 16, 0.15 * 2e-12 / 16, "noise from the residual");
+    an_record_free(&r);
+    truth pair[] = {{290.6, 1.06e-9, 1, 0.5}, {120.4, 1.19e-9, 0.3, 19.5}};
+    r = make_record(1024, 1058.1, 1.0, 0.995, pair, 2, 1e-12, 92);
+    out = reduce(&r, &s);
+    assert_int_equal(out.nlines, 2);
+    check_line(&out.lines[0], &pair[1], 3, "broad line");
+    check_line(&out.lines[1], &pair[0], 3, "narrow line");
+    an_record_free(&r);
+}
+
 static void test_window_and_receiver_sign_are_applied(void **state) {
     (void)state;
     truth l = {250.25, 1, 0.7, 2};
@@ -751,6 +776,7 @@ int main(void) {
         cmocka_unit_test(test_settings_default_as_documented),
         cmocka_unit_test(test_amplitude_is_measured_at_the_end_of_the_pulse),
         cmocka_unit_test(test_two_lines_are_resolved_strongest_first),
+        cmocka_unit_test(test_broad_lines_are_found_where_skirts_fill_the_band),
         cmocka_unit_test(test_window_and_receiver_sign_are_applied),
         cmocka_unit_test(test_noise_alone_gives_no_line_and_its_rms),
         cmocka_unit_test(test_snr_is_the_line_height_over_the_noise),
