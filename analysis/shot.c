@@ -356,6 +356,65 @@ static size_t grade(an_work *w, const an_trace *tr, const an_spectrum *sp, doubl
     return nl;
 }
 
+/* The line noise removed with the lines that outshine it taken out first:
+ * a line far above the comb within reach of where a harmonic could drift
+ * would pull the comb's fundamental onto itself and be taken out with it.
+ * Those lines (above twice the comb's highest bin near its first
+ * harmonics and outside every harmonic's reach, or ten times above it
+ * anywhere; apart from each other by MASK_APART natural bins so a line's
+ * sidelobes are not taken for lines) are fitted and subtracted from
+ * a copy, the comb is fitted to the copy, and what was removed there is
+ * removed from the trace. */
+#define MAINS_SEARCH 0.5        /* Hz the fundamental may drift */
+#define MASK_APART 20.0         /* natural bins between two lines taken out */
+#define MASK_ABOVE 10.0         /* a peak this far above the comb is a line wherever it is */
+
+/* The reach of harmonic h: where it may be when the fundamental drifts. */
+static bool in_reach(double f, double nominal, double guard) {
+    double h = fmax(1, round(f / nominal));
+    return fabs(f - h * nominal) <= h * MAINS_SEARCH + guard;
+}
+
+/* The comb's highest bin near its first three harmonics (the higher ones
+ * reach far enough to take in the skirts of lines). */
+static double comb_top(const an_spectrum *sp, double nominal, double guard) {
+    double top = 0;
+    for (size_t k = 1; k < sp->n && (double)k * sp->df < 3.5 * nominal; k++) {
+        double f = (double)k * sp->df;
+        if (in_reach(f, nominal, guard)) top = fmax(top, hypot(sp->re[k], sp->im[k]));
+    }
+    return sp->scale * top;
+}
+
+static int remove_line_noise(an_work *w, an_trace *tr, double nominal, double t_start,
+                             an_mains *mains) {
+    an_spectrum sp;
+    double f[AN_MAX_LINES], h[AN_MAX_LINES], res = tr->rate / (double)tr->n;
+    if (an_spectrum_of(w, tr->y, tr->n, tr->rate, 0, 1, &sp)) return -1;
+    double *buf = an_work_scratch(w, 2 * tr->n);
+    if (!buf) return -1;
+    double guard = PEAK_GUARD * res, top = comb_top(&sp, nominal, guard);
+    size_t np = an_find_peaks(&sp, 2 * top, PEAK_SEPARATION * res, guard, AN_MAX_LINES, f, h);
+    an_line_fit start[AN_MAX_LINES], lines[AN_MAX_LINES];
+    size_t nl = 0;
+    for (size_t i = 0; i < np; i++) {
+        /* near a harmonic only when far above the comb: then it is no harmonic */
+        bool apart = !in_reach(f[i], nominal, guard) || h[i] > MASK_ABOVE * top;
+        for (size_t j = 0; apart && j < nl; j++)
+            apart = fabs(f[i] - start[j].frequency) > MASK_APART * res;
+        if (apart) start[nl++] = start_value(tr, &sp, f[i], h[i], t_start);
+    }
+    double rms;
+    nl = nl ? fit(w, tr, t_start, start, nl, lines, &rms) : 0;
+    if (nl == 0) return an_remove_mains(tr->y, tr->n, tr->rate, nominal, MAINS_SEARCH, mains);
+    double *copy = buf, *before = buf + tr->n;
+    an_lines_subtract(lines, nl, tr->rate, t_start, tr->y, tr->n, copy);
+    memcpy(before, copy, tr->n * sizeof *copy);
+    if (an_remove_mains(copy, tr->n, tr->rate, nominal, MAINS_SEARCH, mains)) return -1;
+    for (size_t i = 0; i < tr->n; i++) tr->y[i] -= before[i] - copy[i];
+    return 0;
+}
+
 static int check_input(const an_record *r, const an_settings *s, char *err, size_t errlen) {
     if (!r || !s) return say(err, errlen, "no record or no settings to reduce");
     if (!r->samples || !(r->rate > 0) || !isfinite(r->rate))
@@ -381,8 +440,9 @@ int an_reduce(an_work *w, const an_record *r, const an_settings *s, an_shot *out
     if (!isfinite(tr.dc))
         return say(err, errlen, "shot %d: the record holds samples that are not finite "
                    "numbers (NaN or infinite) in the window", r->shot);
+    double t_ref = isnan(r->pulse_end) ? tr.t_first : r->pulse_end;
     if (s->line_noise > 0 &&
-        an_remove_mains(tr.y, tr.n, tr.rate, s->line_noise, 0.5, &out->mains))
+        remove_line_noise(w, &tr, s->line_noise, tr.t_first - t_ref, &out->mains))
         return say(err, errlen, "shot %d: line noise at %g Hz could not be removed (is it "
                    "below the Nyquist frequency, %g Hz?)", r->shot, s->line_noise,
                    0.5 * tr.rate);
