@@ -33,9 +33,11 @@ typedef struct {
 /* The strongest line of n samples at rate (multiplied by sign first, the
  * record's receiver_sign), with its SNR: the line's height in the
  * unapodized spectrum over the rms of the spectrum outside +-guard Hz of it
- * and of 0 Hz. Returns 0, or -1 when there are too few samples. */
-int an_quick_line(const float *samples, size_t n, double rate, int sign, double guard,
-                  an_line *out);
+ * and of 0 Hz. w keeps the FFTW plan from shot to shot. Returns 0, or -1
+ * when there are too few samples. */
+typedef struct an_work an_work;
+int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int sign,
+                  double guard, an_line *out);
 
 /* ---- a shot record read back (record.c) -------------------------------- */
 
@@ -76,7 +78,6 @@ double an_named_value(const an_named *list, size_t n, const char *name);
 
 /* Scratch space reused from record to record: FFTW plans by length and
  * buffers. One per thread; an_work_free frees it all. */
-typedef struct an_work an_work;
 an_work *an_work_new(void);
 void an_work_free(an_work *w);
 

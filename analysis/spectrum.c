@@ -332,29 +332,17 @@ double an_noise_rms(const an_spectrum *s, const double *centre, const double *ex
 
 /* ---- the quick estimate of the progress line ------------------------------------ */
 
-int an_quick_line(const float *samples, size_t n, double rate, int sign, double guard,
-                  an_line *out) {
-    if (n < 16 || rate <= 0) return -1;
-    double *in = fftw_malloc(n * sizeof *in);
-    size_t nf = n / 2 + 1;
-    fftw_complex *spec = fftw_malloc(nf * sizeof *spec);
-    if (!in || !spec) {
-        fftw_free(in);
-        fftw_free(spec);
+int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int sign,
+                  double guard, an_line *out) {
+    an_trace tr;
+    an_spectrum sp;
+    if (!w || n < 16 || rate <= 0 || an_prepare(w, samples, n, rate, 0, sign, 0, 0, &tr) ||
+        an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, 1, &sp))
         return -1;
-    }
-    double mean = 0;
-    for (size_t i = 0; i < n; i++) mean += samples[i];
-    mean /= (double)n;
-    for (size_t i = 0; i < n; i++) in[i] = sign * (samples[i] - mean);
-    pthread_mutex_lock(&planner_lock);
-    fftw_plan plan = fftw_plan_dft_r2c_1d((int)n, in, spec, FFTW_ESTIMATE);
-    pthread_mutex_unlock(&planner_lock);
-    fftw_execute(plan);
-    double df = rate / (double)n, best = -1;
+    double best = -1;
     size_t peak = 1;
-    for (size_t k = 1; k < nf; k++) {
-        double m = hypot(spec[k][0], spec[k][1]);
+    for (size_t k = 1; k < sp.n; k++) {
+        double m = sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
         if (m > best) {
             best = m;
             peak = k;
@@ -362,21 +350,15 @@ int an_quick_line(const float *samples, size_t n, double rate, int sign, double 
     }
     double sum = 0;
     size_t count = 0;
-    for (size_t k = 1; k < nf; k++) {
-        double f = (double)k * df;
-        if (fabs(f - (double)peak * df) <= guard || f <= guard) continue;
-        double m = hypot(spec[k][0], spec[k][1]);
-        sum += m * m;
+    for (size_t k = 1; k < sp.n; k++) {
+        double f = (double)k * sp.df;
+        if (fabs(f - (double)peak * sp.df) <= guard || f <= guard) continue;
+        sum += sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
         count++;
     }
-    out->frequency = (double)peak * df;
-    out->height = best;
-    out->noise = count ? sqrt(sum / (double)count) : 0;
-    out->snr = out->noise > 0 ? best / out->noise : INFINITY;
-    pthread_mutex_lock(&planner_lock);
-    fftw_destroy_plan(plan);
-    pthread_mutex_unlock(&planner_lock);
-    fftw_free(in);
-    fftw_free(spec);
+    out->frequency = (double)peak * sp.df;
+    out->height = sp.scale * sqrt(best);
+    out->noise = count ? sp.scale * sqrt(sum / (double)count) : 0;
+    out->snr = out->noise > 0 ? out->height / out->noise : INFINITY;
     return 0;
 }

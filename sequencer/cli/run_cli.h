@@ -5,6 +5,7 @@
 #define PRECESS_RUN_CLI_H
 
 #include <signal.h>
+#include "analysis.h"
 #include "compile.h"
 #include "driver.h"
 #include "schedule.h"
@@ -33,6 +34,7 @@ typedef struct {
     int progress_tty;
     pid_t supervisor;
     int supervisor_pipe;
+    an_work *quick;             /* the progress line's spectra */
 } run_session;
 
 /* Finds and opens the driver (no folder yet). Returns a CLI exit status. */

@@ -95,16 +95,17 @@ static void clock_text(double s, char *buf, size_t n) {
 
 /* The strongest line of the shot's first acquisition, as the progress line
  * shows it: "425.8 Hz, SNR 57", or the planned frequency when there is none. */
-static void last_line(const sched_shot_result *res, const compile_timeline *t, char *buf,
-                      size_t n) {
+static void last_line(run_session *r, const sched_shot_result *res, const compile_timeline *t,
+                      char *buf, size_t n) {
     char f[32];
     const store_record *rec = res->record;
     an_line line;
     if (rec && rec->nacquisitions && rec->acquisitions[0].nchannels) {
         const store_channel *ch = &rec->acquisitions[0].channels[0];
         double guard = fmax(10.0, 20.0 * ch->sample_rate / (double)(ch->n ? ch->n : 1));
-        if (an_quick_line(ch->samples, ch->n, ch->sample_rate, ch->receiver_sign, guard,
-                          &line) == 0) {
+        if (!r->quick) r->quick = an_work_new();
+        if (an_quick_line(r->quick, ch->samples, ch->n, ch->sample_rate, ch->receiver_sign,
+                          guard, &line) == 0) {
             units_format(line.frequency, UNITS_FREQUENCY, f, sizeof f);
             snprintf(buf, n, "%s, SNR %.0f", f, line.snr);
             return;
@@ -122,7 +123,7 @@ static void progress(run_session *r, const sched_shot_result *res) {
     char e[32], l[32], f[64];
     clock_text(elapsed, e, sizeof e);
     clock_text(left, l, sizeof l);
-    last_line(res, t, f, sizeof f);
+    last_line(r, res, t, f, sizeof f);
     if (r->progress_tty)
         fprintf(stderr, "\rshot %u/%zu  elapsed %s  remaining %s  last shot %s: %s\033[K",
                 res->shot, r->total, e, l, res->ok ? "ok" : "FAILED", f);
@@ -254,4 +255,5 @@ void run_close(run_session *r) {
     stop_supervisor(r);
     if (r->driver) r->ops->close(r->driver);
     clock_free(r->clock);
+    an_work_free(r->quick);
 }
