@@ -211,8 +211,10 @@ typedef struct {
 } an_average;
 void an_average_init(an_average *a);
 int an_average_add(an_average *a, const an_record *r, char *err, size_t errlen);
-/* Finish: a->sum holds the averaged record; returns 0, -1 when empty. */
+/* Finish: a->sum holds the averaged record, from then on the caller's to
+ * free (an_record_free); returns 0, -1 when empty. */
 int an_average_finish(an_average *a);
+/* Frees what an unfinished average holds; a finished one's sum is left. */
 void an_average_free(an_average *a);
 
 /* ---- fits across points (series.c) ------------------------------------- */

@@ -35,6 +35,7 @@ typedef double pair __attribute__((vector_size(16)));
 #define SYNTH_GROUP 8         /* harmonics synthesized side by side */
 #define SEGMENT 1024          /* samples between exact re-seeds of the recurrences */
 #define SCAN_STEPS_PER_LOBE 4 /* coarse scan: 1 / (4 H T) */
+#define REFINE_HARMONICS 8     /* harmonics the fundamental is refined on */
 #define ZERO_FILL 2           /* the coarse scan's spectrum: bins 1 / (2 T) apart */
 #define MIN_CYCLES 2.0        /* shortest trace, in periods of the lowest fundamental */
 #define MAX_BRENT 100
@@ -455,12 +456,12 @@ static int search_from(fit_context *fc, double lo, double hi, double step, doubl
  * out: a trace of noise alone has many maxima of nearly the same height,
  * and a candidate valued a fraction of a step off its peak can lose up to
  * 5 % to another). The answer is the best fundamental tried. */
-static int refine(fit_context *fc, double lo, double hi, double *fundamental) {
+static int refine(fit_context *fc, double lo, double hi, size_t all, double *fundamental) {
     double duration = (double)fc->n / fc->rate;
     double step = 1 / (SCAN_STEPS_PER_LOBE * (double)fc->nh * duration);
-    /* Converged when the top harmonic's phase over the trace is uncertain
-     * by 1e-5 rad or less: pi H df T <= 1e-5. */
-    double tolerance = 1e-5 / (M_PI * (double)fc->nh * duration);
+    /* Converged when the top harmonic removed (of all) has its phase over
+     * the trace uncertain by 1e-5 rad or less: pi H df T <= 1e-5. */
+    double tolerance = 1e-5 / (M_PI * (double)all * duration);
     if (!(hi > lo)) {
         *fundamental = lo;
         return 0;
@@ -589,8 +590,22 @@ int an_remove_mains(double *y, size_t n, double rate, double nominal, double sea
     /* The fundamental alone, near the Nyquist frequency: search no higher
      * than 0.45 rate, or than nominal when that is higher still. */
     if (hi >= 0.45 * rate) hi = fmax(nominal, 0.45 * rate);
-    double fundamental;
-    if (refine(&fc, lo, hi, &fundamental)) return -1;
+    /* The fundamental found on the first harmonics only (a high harmonic's
+     * reach, h times the search, spans hertz, where a strong NMR line would
+     * pull it onto itself), then refined on every harmonic within one lobe
+     * of the whole comb, 1 / (H T), too narrow for a line to pull it far. */
+    size_t all = fc.nh;
+    double fundamental, duration = (double)n / rate;
+    if (all > REFINE_HARMONICS) {
+        fc.nh = REFINE_HARMONICS;
+        if (refine(&fc, lo, hi, all, &fundamental)) return -1;
+        double lobe = 1 / ((double)all * duration);
+        fc.nh = all;
+        fc.best_f = 0;
+        lo = fmax(lo, fundamental - lobe);
+        hi = fmin(hi, fundamental + lobe);
+    }
+    if (refine(&fc, lo, hi, all, &fundamental)) return -1;
     fit_result r = fc.best;
     if (fc.best_f != fundamental && fit_at(&fc, fundamental, &r)) return -1;
     double removed = subtract(y, n, 2 * M_PI * fundamental / rate, fc.nh, &r);

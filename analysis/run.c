@@ -219,9 +219,11 @@ static void reduce_point(reducer *z, an_point_entry *pe, size_t *order, size_t n
     pe->x = z->x_count ? z->x_sum / (double)z->x_count : NAN;
     pe->field = z->field_count ? z->field_sum / (double)z->field_count : NAN;
     pe->line = -1;
-    if (pe->nshots && an_average_finish(&z->avg) == 0)
+    if (pe->nshots && an_average_finish(&z->avg) == 0) {
         pe->reduced = an_reduce(z->w, &z->avg.sum, &z->p->settings, &pe->result, pe->error,
                                 sizeof pe->error) == 0;
+        an_record_free(&z->avg.sum);    /* a finished average is the caller's */
+    }
     an_average_free(&z->avg);
 }
 
