@@ -14,7 +14,7 @@
 #include <string.h>
 
 #define TRACE_POINTS 4000       /* drawn per line at most: an envelope beyond */
-#define LEFT 0.10
+#define LEFT 0.12
 #define TOP 0.89
 #define RIGHT 0.97
 #define MAX_ROWS 4              /* rows of line labels above a spectrum */

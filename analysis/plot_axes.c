@@ -299,7 +299,7 @@ void an_axes_frame(const an_axis *x, const an_axis *y, bool x_numbers, bool on_i
         plmtex("lv", 0.7 + gap, (ty.at[k] - y->lo) / (y->hi - y->lo), 1.0, ty.text[k]);
     if (x_numbers)
         plmtex("b", 3.3 + gap, 0.5, 0.5, an_page_text(x->label, buf, sizeof buf));
-    double room = 0.7 + gap + DIGIT_WIDTH * (double)widest(&ty) + 1.4;
+    double room = 0.7 + gap + DIGIT_WIDTH * (double)widest(&ty) + 1.2;
     if (y->label[0]) plmtex("l", room, 0.5, 0.5, an_page_text(y->label, buf, sizeof buf));
 }
 

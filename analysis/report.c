@@ -159,7 +159,7 @@ typedef struct {
     const an_run *r;
     const an_plan *p;
     char dir[4200];
-    double *t, *y, *fit, *f, *mag, *fit_mag, *map, *map_y;
+    double *t, *y, *fit, *f, *mag, *fit_mag, *map, *map_y, *map_strength;
     size_t cap, spec_cap, map_rows;
     double map_fmax;
 } plotter;
@@ -252,15 +252,33 @@ static size_t shown_bins(const an_shot *s, const an_spectrum *sp) {
     return n < sp->n ? n : sp->n;
 }
 
+/* The map's rows are the field the series is taken per (a dispersion
+ * study's relaxation field), else its x. */
+static double map_y_of(const plotter *z, const an_point_entry *pe) {
+    for (size_t j = 0; z->p->per && j < z->r->nparameters; j++)
+        if (strcmp(z->r->parameter[j], z->p->per) == 0) return pe->parameters[j];
+    return pe->x;
+}
+
 static int plot_point(plotter *z, const an_point_entry *pe, bool draw, char *err,
                       size_t errlen) {
     an_record avg;
     an_trace tr;
     an_spectrum sp;
     int rc = point_spectra(z, pe, &avg, &tr, &sp, err, errlen);
-    if (rc == 0 && z->map && !isnan(pe->x)) {
-        map_row(z->mag, &sp, z->map_fmax, z->map + z->map_rows * MAP_COLUMNS);
-        z->map_y[z->map_rows++] = pe->x;
+    double y = map_y_of(z, pe);
+    if (rc == 0 && z->map && !isnan(y)) {
+        /* one row per value: the point with the strongest line */
+        size_t row = z->map_rows;
+        for (size_t i = 0; i < z->map_rows; i++)
+            if (z->map_y[i] == y) row = i;
+        double strength = pe->reduced && pe->result.nlines ? pe->result.lines[0].amplitude : 0;
+        if (row == z->map_rows || strength > z->map_strength[row]) {
+            map_row(z->mag, &sp, z->map_fmax, z->map + row * MAP_COLUMNS);
+            z->map_y[row] = y;
+            z->map_strength[row] = strength;
+            if (row == z->map_rows) z->map_rows++;
+        }
     }
     if (rc == 0 && draw) {
         char title[512], params[400], base[4400];
@@ -408,10 +426,11 @@ static int plot_all(plotter *z, char *err, size_t errlen) {
     if (with_shots >= 2 && (z->p->against || z->p->against_coil)) {
         z->map = malloc(with_shots * MAP_COLUMNS * sizeof *z->map);
         z->map_y = malloc(with_shots * sizeof *z->map_y);
+        z->map_strength = malloc(with_shots * sizeof *z->map_strength);
         z->map_fmax = map_span(r);
-        if (!z->map || !z->map_y || !isfinite(z->map_fmax)) {
-            free(z->map), free(z->map_y);
-            z->map = z->map_y = NULL;
+        if (!z->map || !z->map_y || !z->map_strength || !isfinite(z->map_fmax)) {
+            free(z->map), free(z->map_y), free(z->map_strength);
+            z->map = z->map_y = z->map_strength = NULL;
         }
     }
     size_t every = with_shots > MAX_POINT_PLOTS ? (with_shots + MAX_POINT_PLOTS - 1) / MAX_POINT_PLOTS : 1;
@@ -427,11 +446,17 @@ static int plot_all(plotter *z, char *err, size_t errlen) {
         sort_rows(z->map_y, z->map, z->map_rows);
         char base[4400], yname[160];
         snprintf(base, sizeof base, "%s/map", z->dir);
-        if (z->p->against_coil) snprintf(yname, sizeof yname, "current of %s", z->p->against_coil);
+        bool per = z->p->per != NULL;
+        if (per) snprintf(yname, sizeof yname, "%s", z->p->per);
+        else if (z->p->against_coil)
+            snprintf(yname, sizeof yname, "current of %s", z->p->against_coil);
         else snprintf(yname, sizeof yname, "%s", z->p->against);
-        an_plot_map_data d = {.title = "spectra of every point (each scaled to its largest)",
+        an_plot_map_data d = {.title = per ? "spectra, the strongest point of each value "
+                                             "(each scaled to its largest)"
+                                           : "spectra of every point (each scaled to its largest)",
                               .y_name = yname,
-                              .y_unit = z->p->against_coil ? "A" : z->p->against_unit,
+                              .y_unit = per ? z->p->per_unit
+                                            : z->p->against_coil ? "A" : z->p->against_unit,
                               .nrows = z->map_rows, .ncols = MAP_COLUMNS, .y = z->map_y,
                               .f_min = 0, .f_max = z->map_fmax, .magnitude = z->map};
         rc = an_plot_map(base, &d, err, errlen);
@@ -460,6 +485,6 @@ int an_run_write(const an_run *r, const an_plan *p, char *err, size_t errlen) {
     }
     an_work_free(z.w);
     free(z.t), free(z.y), free(z.fit), free(z.f), free(z.mag), free(z.fit_mag);
-    free(z.map), free(z.map_y);
+    free(z.map), free(z.map_y), free(z.map_strength);
     return rc;
 }

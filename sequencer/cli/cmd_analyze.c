@@ -6,6 +6,7 @@
  * Not for the reduction itself (analysis/). */
 #include "analysis.h"
 #include "cli.h"
+#include "units.h"
 
 #include <jansson.h>
 #include <math.h>
@@ -167,7 +168,7 @@ static void print_json(const an_run *r, const an_plan *p) {
     json_decref(doc);
 }
 
-static void print_summary(const an_run *r, const an_plan *p) {
+static void print_summary(const an_run *r, const an_plan *p, const plan *pl) {
     size_t failed = 0, lines = 0;
     for (size_t i = 0; i < r->nshots; i++) {
         failed += !r->shots[i].reduced;
@@ -179,9 +180,10 @@ static void print_summary(const an_run *r, const an_plan *p) {
     fputc('\n', stderr);
     for (size_t i = 0; i < r->nseries; i++) {
         const an_series_entry *s = &r->series[i];
-        char per[128] = "";
-        if (!isnan(s->per)) snprintf(per, sizeof per, " at %s = %.4g %s", p->per, s->per,
-                                     p->per_unit);
+        char per[128] = "", q[48];
+        if (!isnan(s->per) && pl->analysis.per_var >= 0)
+            snprintf(per, sizeof per, " at %s = %s", p->per,
+                     units_format(s->per, pl->vars[pl->analysis.per_var].dim, q, sizeof q));
         if (!s->fitted)
             fprintf(stderr, "  fit%s: not fitted (%zu points)\n", per, s->n);
         else if (s->fit == AN_SERIES_CALIBRATION)
@@ -228,7 +230,7 @@ int cmd_analyze(int argc, char **argv) {
                  : CLI_FAILED;
     if (rc != CLI_OK) fprintf(stderr, "precess analyze: %s\n", err);
     else if (json) print_json(r, &ap);
-    else print_summary(r, &ap);
+    else print_summary(r, &ap, p);
     plan_free(p);
     an_run_free(r);
     return rc;
