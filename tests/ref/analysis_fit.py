@@ -14,7 +14,10 @@ import sys
 import numpy
 import scipy.optimize
 
-CASES = os.path.join(os.environ.get("B") or "build", "tests", "analysis_cases.jsonl")
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "common"))
+from cases import cases_path, read_cases  # noqa: E402
+
+CASES = cases_path("analysis_cases.jsonl")
 MIN_CASES = 20
 
 # Tolerances. Spectra: both are FFTs of the same doubles, so they differ by
@@ -153,24 +156,8 @@ def check_fit(where, case, y, worst):
                 fail("%s error: ours %.10g, scipy %.10g" % (label, err[j], ref_err[j]))
 
 
-def read_cases():
-    if not os.path.exists(CASES):
-        print("FAIL: no %s (run test_analysis first, with the same B)" % CASES)
-        return None
-    try:
-        with open(CASES) as f:
-            cases = [json.loads(line) for line in f if line.strip()]
-    except ValueError as e:
-        print("FAIL: %s is not JSON lines: %s" % (CASES, e))
-        return None
-    if len(cases) < MIN_CASES:
-        print("FAIL: %s holds %d cases, want at least %d" % (CASES, len(cases), MIN_CASES))
-        return None
-    return cases
-
-
 def main():
-    cases = read_cases()
+    cases = read_cases(CASES, "test_analysis", MIN_CASES)
     if cases is None:
         return 1
     worst = {"spectrum": 0.0, "fit": 0.0, "sigma": 0.0, "err": 0.0}

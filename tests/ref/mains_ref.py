@@ -14,7 +14,10 @@ import sys
 import numpy
 import scipy.optimize
 
-CASES = os.path.join(os.environ.get("B") or "build", "tests", "mains_cases.jsonl")
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "common"))
+from cases import cases_path, read_cases  # noqa: E402
+
+CASES = cases_path("mains_cases.jsonl")
 MIN_CASES = 4
 
 # Tolerances. Amplitudes relative to the largest (a harmonic that is only
@@ -132,24 +135,8 @@ def check_fundamental(where, case, y, worst):
     worst["fundamental"] = max(worst["fundamental"], abs(f_near - f) / lobe)
 
 
-def read_cases():
-    if not os.path.exists(CASES):
-        print("FAIL: no %s (run test_mains first, with the same B)" % CASES)
-        return None
-    try:
-        with open(CASES) as f:
-            cases = [json.loads(line) for line in f if line.strip()]
-    except ValueError as e:
-        print("FAIL: %s is not JSON lines: %s" % (CASES, e))
-        return None
-    if len(cases) < MIN_CASES:
-        print("FAIL: %s holds %d cases, want at least %d" % (CASES, len(cases), MIN_CASES))
-        return None
-    return cases
-
-
 def main():
-    cases = read_cases()
+    cases = read_cases(CASES, "test_mains", MIN_CASES)
     if cases is None:
         return 1
     worst = {"amplitude": 0.0, "cleaned": 0.0, "fundamental": 0.0}

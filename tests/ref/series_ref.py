@@ -12,7 +12,10 @@ import sys
 import numpy
 from scipy.optimize import curve_fit
 
-CASES = os.path.join(os.environ.get("B") or "build", "tests", "series_cases.jsonl")
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "common"))
+from cases import cases_path, read_cases  # noqa: E402
+
+CASES = cases_path("series_cases.jsonl")
 MIN_CASES = 60
 NPARAM = 3
 
@@ -125,24 +128,8 @@ def check_calibration(where, case, x, y, y_err, worst):
     return weighted
 
 
-def read_cases():
-    if not os.path.exists(CASES):
-        print("FAIL: no %s (run test_series first, with the same B)" % CASES)
-        return None
-    try:
-        with open(CASES) as f:
-            cases = [json.loads(line) for line in f if line.strip()]
-    except ValueError as e:
-        print("FAIL: %s is not JSON lines: %s" % (CASES, e))
-        return None
-    if len(cases) < MIN_CASES:
-        print("FAIL: %s holds %d cases, want at least %d" % (CASES, len(cases), MIN_CASES))
-        return None
-    return cases
-
-
 def main():
-    cases = read_cases()
+    cases = read_cases(CASES, "test_series", MIN_CASES)
     if cases is None:
         return 1
     worst = {"param": 0.0, "error": 0.0, "chi2": 0.0}

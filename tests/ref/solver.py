@@ -10,7 +10,10 @@ import sys
 
 import numpy
 
-CASES = os.path.join(os.environ.get("B") or "build", "tests", "coil_cases.jsonl")
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "common"))
+from cases import cases_path, read_cases  # noqa: E402
+
+CASES = cases_path("coil_cases.jsonl")
 MIN_CASES = 20
 
 # Tolerances. Currents relative to |x| (numpy's), misfits relative to |b|
@@ -79,24 +82,8 @@ def check_case(number, case, worst):
     worst["condition"] = max(worst["condition"], dc)
 
 
-def read_cases():
-    if not os.path.exists(CASES):
-        print("FAIL: no %s (run test_coils first, with the same B)" % CASES)
-        return None
-    try:
-        with open(CASES) as f:
-            cases = [json.loads(line) for line in f if line.strip()]
-    except ValueError as e:
-        print("FAIL: %s is not JSON lines: %s" % (CASES, e))
-        return None
-    if len(cases) < MIN_CASES:
-        print("FAIL: %s holds %d cases, want at least %d" % (CASES, len(cases), MIN_CASES))
-        return None
-    return cases
-
-
 def main():
-    cases = read_cases()
+    cases = read_cases(CASES, "test_coils", MIN_CASES)
     if cases is None:
         return 1
     worst = {"square": 0.0, "tall": 0.0, "wide": 0.0, "misfit": 0.0, "condition": 0.0}
