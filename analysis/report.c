@@ -253,11 +253,30 @@ static size_t shown_bins(const an_shot *s, const an_spectrum *sp) {
 }
 
 /* The map's rows are the field the series is taken per (a dispersion
- * study's relaxation field), else its x. */
+ * study's relaxation field), else the series' x, else the plan's first
+ * scan variable that is a field (or its first at all). */
+static int map_parameter(const plotter *z) {
+    int first_field = -1;
+    for (size_t j = 0; j < z->r->nparameters; j++) {
+        if (z->p->per && strcmp(z->r->parameter[j], z->p->per) == 0) return (int)j;
+        for (size_t i = 0; i < z->p->nvars && first_field < 0; i++)
+            if (strcmp(z->p->var_name[i], z->r->parameter[j]) == 0 &&
+                strcmp(z->p->var_unit[i], "T") == 0)
+                first_field = (int)j;
+    }
+    if (z->p->against || z->p->against_coil) return -1;     /* the x */
+    return first_field >= 0 ? first_field : z->r->nparameters ? 0 : -2;
+}
+
 static double map_y_of(const plotter *z, const an_point_entry *pe) {
-    for (size_t j = 0; z->p->per && j < z->r->nparameters; j++)
-        if (strcmp(z->r->parameter[j], z->p->per) == 0) return pe->parameters[j];
-    return pe->x;
+    int j = map_parameter(z);
+    return j >= 0 ? pe->parameters[j] : j == -1 ? pe->x : NAN;
+}
+
+static const char *map_unit(const plotter *z, int j) {
+    for (size_t i = 0; j >= 0 && i < z->p->nvars; i++)
+        if (strcmp(z->p->var_name[i], z->r->parameter[j]) == 0) return z->p->var_unit[i];
+    return j == -1 ? (z->p->against_coil ? "A" : z->p->against_unit) : "";
 }
 
 static int plot_point(plotter *z, const an_point_entry *pe, bool draw, char *err,
@@ -423,7 +442,7 @@ static int plot_all(plotter *z, char *err, size_t errlen) {
     const an_run *r = z->r;
     size_t with_shots = 0;
     for (size_t i = 0; i < r->npoints; i++) with_shots += r->points[i].nshots > 0;
-    if (with_shots >= 2 && (z->p->against || z->p->against_coil)) {
+    if (with_shots >= 2 && map_parameter(z) != -2) {
         z->map = malloc(with_shots * MAP_COLUMNS * sizeof *z->map);
         z->map_y = malloc(with_shots * sizeof *z->map_y);
         z->map_strength = malloc(with_shots * sizeof *z->map_strength);
@@ -447,16 +466,15 @@ static int plot_all(plotter *z, char *err, size_t errlen) {
         char base[4400], yname[160];
         snprintf(base, sizeof base, "%s/map", z->dir);
         bool per = z->p->per != NULL;
-        if (per) snprintf(yname, sizeof yname, "%s", z->p->per);
+        int j = map_parameter(z);
+        if (j >= 0) snprintf(yname, sizeof yname, "%s", z->r->parameter[j]);
         else if (z->p->against_coil)
             snprintf(yname, sizeof yname, "current of %s", z->p->against_coil);
         else snprintf(yname, sizeof yname, "%s", z->p->against);
         an_plot_map_data d = {.title = per ? "spectra, the strongest point of each value "
                                              "(each scaled to its largest)"
                                            : "spectra of every point (each scaled to its largest)",
-                              .y_name = yname,
-                              .y_unit = per ? z->p->per_unit
-                                            : z->p->against_coil ? "A" : z->p->against_unit,
+                              .y_name = yname, .y_unit = map_unit(z, j),
                               .nrows = z->map_rows, .ncols = MAP_COLUMNS, .y = z->map_y,
                               .f_min = 0, .f_max = z->map_fmax, .magnitude = z->map};
         rc = an_plot_map(base, &d, err, errlen);
