@@ -22,7 +22,7 @@
 
 #define STAGE_DEPTH 4          /* built images waiting for the committer */
 #define CHUNK_SAMPLES 65536     /* samples per chunk of a sample dataset */
-#define DEFLATE_LEVEL 4
+#define DEFLATE_LEVEL 1
 
 /* Debian's HDF5 is the serial build, unsafe from two threads at once: the
  * writers of two stores open together take turns through this lock. The

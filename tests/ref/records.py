@@ -168,7 +168,7 @@ def check_channel(where, name, d, params):
         fail("%s: %s is not 1-D float32" % (where, name))
         return 0
     if d.chunks is None or d.chunks[0] > CHUNK_MAX or d.compression != "gzip" or \
-            d.compression_opts != 4:
+            d.compression_opts != 1:
         fail("%s: %s chunks %r compression %r level %r" % (where, name, d.chunks, d.compression,
                                                            d.compression_opts))
     a = d.attrs
