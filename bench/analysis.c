@@ -60,15 +60,8 @@ static double pipeline(const char *run, size_t n, const an_settings *s, size_t *
 
 int main(int argc, char **argv) {
     const char *precess = argc > 1 ? argv[1] : "build/precess";
-    char cwd[2048], dir[] = "/tmp/precess-bench-analysis-XXXXXX", cmd[8192], path[4096];
-    if (!getcwd(cwd, sizeof cwd) || !mkdtemp(dir)) return 1;
-    snprintf(path, sizeof path, "%s/plan.yaml", dir);
-    FILE *f = fopen(path, "w");
-    if (!f) return 1;
-    fprintf(f, PLAN, cwd);
-    fclose(f);
-    snprintf(cmd, sizeof cmd, "%s run %s/plan.yaml --fast --out %s/run >/dev/null 2>&1",
-             precess, dir, dir);
+    char dir[] = "/tmp/precess-bench-analysis-XXXXXX", cmd[8192];
+    if (bench_plan(dir, PLAN, precess, cmd, sizeof cmd) != 0) return 1;
     if (system(cmd) != 0) {
         fprintf(stderr, "bench/analysis: the simulated run failed (%s)\n", cmd);
         return 1;
@@ -84,7 +77,7 @@ int main(int argc, char **argv) {
     double t_sub = pipeline(run, SCRIPT_SHOTS, &s, &lines_sub, NULL);
     double t_all = pipeline(run, SHOTS, &s, &lines, &rss100);
     long rss1000 = rss_kb();
-    snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s/bench/analysis_ref.py %s %d", cwd, run,
+    snprintf(cmd, sizeof cmd, "/usr/bin/python3 bench/analysis_ref.py %s %d", run,
              SCRIPT_SHOTS);
     FILE *py = popen(cmd, "r");
     double t_py = -1;

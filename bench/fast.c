@@ -62,15 +62,8 @@ static int rewrite(const char *run, const char *out, size_t *n) {
 
 int main(int argc, char **argv) {
     const char *precess = argc > 1 ? argv[1] : "build/precess";
-    char cwd[2048], dir[] = "/tmp/precess-bench-fast-XXXXXX", cmd[8192], path[4096];
-    if (!getcwd(cwd, sizeof cwd) || !mkdtemp(dir)) return 1;
-    snprintf(path, sizeof path, "%s/plan.yaml", dir);
-    FILE *f = fopen(path, "w");
-    if (!f) return 1;
-    fprintf(f, PLAN, cwd);
-    fclose(f);
-    snprintf(cmd, sizeof cmd, "%s run %s/plan.yaml --fast --out %s/run >/dev/null 2>&1",
-             precess, dir, dir);
+    char dir[] = "/tmp/precess-bench-fast-XXXXXX", cmd[8192], path[4096];
+    if (bench_plan(dir, PLAN, precess, cmd, sizeof cmd) != 0) return 1;
     double t0 = bench_now();
     int rc = system(cmd);
     double t_run = bench_now() - t0;
