@@ -87,6 +87,15 @@ grep -q "^main at sample (uT/A)  *150 " "$T/out" || fail "old and new not side b
 $P check "$T/bench-calibrated.yaml" >/dev/null 2>&1 || fail "the calibrated rig does not check"
 $P calibrate "$T/run" --rig "$T/bench.yaml" > "$T/out" 2>&1 || fail "calibrate again"
 [ "$(tail -1 "$T/out")" = "$T/bench-calibrated-2.yaml" ] || fail "calibrate overwrote its last copy"
+# Against a coil's current: that coil's field per ampere (the quiet rig's
+# true 150 uT/A, within half a percent).
+{ cat tests/plans/run-short.yaml; echo "analysis: {fit: calibration, against: {current: main}}"; } \
+    > "$T/current.yaml"
+$P run "$T/current.yaml" --fast --out "$T/current" >/dev/null 2>&1 || fail "run against current"
+$P calibrate "$T/current" --rig "$T/bench.yaml" > "$T/out" 2>"$T/err" ||
+    fail "calibrate against a current: $(cat "$T/err")"
+awk '/^main at sample/ { if ($5 < 149.25 || $5 > 150.75) exit 1; found = 1 } END { exit !found }' \
+    "$T/out" || fail "calibrate against a current: $(cat "$T/out")"
 sed -e '/^analysis:/d' tests/plans/run-short.yaml > "$T/nofit.yaml"
 $P run "$T/nofit.yaml" --fast --out "$T/nofit" >/dev/null 2>&1 || fail "run without analysis"
 $P calibrate "$T/nofit" --rig "$T/bench.yaml" >/dev/null 2>"$T/err"; [ $? = 2 ] ||
