@@ -855,6 +855,7 @@ int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen)
                      " not written", r->shot);
             rc = -1;
         } else if (s->failed) {
+            s->lost++;          /* this one too: its shot ran */
             rc = report_failure(s, err, errlen);
         } else if (s->count < s->capacity) {
             s->queue[(s->head + s->count) % s->capacity] = r;
@@ -888,6 +889,12 @@ void store_counts(store *s, size_t *ok, size_t *failed) {
 }
 
 int store_close(store *s, char *err, size_t errlen) {
+    size_t lost;
+    return store_finish(s, &lost, err, errlen);
+}
+
+int store_finish(store *s, size_t *lost, char *err, size_t errlen) {
+    *lost = 0;
     if (!s) return 0;
     pthread_mutex_lock(&s->lock);
     s->stopping = true;
@@ -898,6 +905,7 @@ int store_close(store *s, char *err, size_t errlen) {
         pthread_join(s->writer, NULL);
         pthread_join(s->committer, NULL);
     }
+    *lost = s->lost;
     int rc = report_failure(s, err, errlen);
     store_free(s);
     return rc;

@@ -95,8 +95,12 @@ int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen)
 int store_flush(store *s, char *err, size_t errlen);
 /* Records written so far as ok, and failed. */
 void store_counts(store *s, size_t *ok, size_t *failed);
+
 /* Stop the writer (after writing what is queued) and free everything. */
 int store_close(store *s, char *err, size_t errlen);
+/* The same, with *lost set to the records dropped unwritten because the
+ * writer had failed before them (counted once the writer has stopped). */
+int store_finish(store *s, size_t *lost, char *err, size_t errlen);
 const char *store_dir(const store *s);
 
 /* ---- the journal (journal.c) --------------------------------------------- */

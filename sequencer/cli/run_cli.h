@@ -35,6 +35,7 @@ typedef struct {
     pid_t supervisor;
     int supervisor_pipe;
     an_work *quick;             /* the progress line's spectra */
+    size_t lost;                /* records the store dropped after failing */
 } run_session;
 
 /* Finds and opens the driver (no folder yet). Returns a CLI exit status. */

@@ -115,6 +115,14 @@ static void last_line(run_session *r, const sched_shot_result *res, const compil
     snprintf(buf, n, "%s planned", f);
 }
 
+/* Closes the store, keeping how many records it dropped; true when it
+ * reports a failure. */
+static bool store_close_keep(run_session *r, char *err, size_t errlen) {
+    bool bad = store_finish(r->st, &r->lost, err, errlen) != 0;
+    r->st = NULL;
+    return bad;
+}
+
 static void progress(run_session *r, const sched_shot_result *res) {
     const compiled *c = r->c;
     const compile_timeline *t = compile_shot_timeline(c, res->shot);
@@ -193,11 +201,14 @@ static const char *reason_of(sched_status s) {
                                              : "fault";
 }
 
-static void journal_stop(run_session *r, const sched_summary *sum) {
+/* A run whose records could not be written stopped on a fault of the
+ * recording, whatever the scheduler says. */
+static void journal_stop(run_session *r, const sched_summary *sum, bool recording_failed) {
     json_t *timing = json_pack("{s:I, s:f, s:f, s:f}", "events", (json_int_t)sum->nevents,
                                "p50_us", sum->p50 * 1e6, "p99_us", sum->p99 * 1e6, "max_us",
                                sum->max * 1e6);
-    json_t *o = json_pack("{s:s, s:o}", "reason", reason_of(sum->status), "timing", timing);
+    json_t *o = json_pack("{s:s, s:o}", "reason",
+                          recording_failed ? "fault" : reason_of(sum->status), "timing", timing);
     if (sum->status == SCHED_FAULT || sum->status == SCHED_FAILED) {
         if (sum->error[0]) json_object_set_new(o, "error", json_string(sum->error));
     }
@@ -232,20 +243,28 @@ int run_execute(run_session *r) {
     sched_summary sum;
     sched_run(&a, &sum);
     if (r->progress_tty) fputc('\n', stderr);
-    if (store_flush(r->st, err, sizeof err) && sum.status == SCHED_OK) {
+    bool recording_failed = store_flush(r->st, err, sizeof err) != 0;
+    if (recording_failed && sum.status == SCHED_OK) {
         sum.status = SCHED_FAILED;
         snprintf(sum.error, sizeof sum.error, "%s", err);
     }
-    journal_stop(r, &sum);
+    journal_stop(r, &sum, recording_failed);
     size_t ok = 0, failed = 0;
     store_counts(r->st, &ok, &failed);
-    if (store_close(r->st, err, sizeof err) && sum.status == SCHED_OK) sum.status = SCHED_FAILED;
-    r->st = NULL;
+    bool store_failed = store_close_keep(r, err, sizeof err);
+    if (store_failed && sum.status == SCHED_OK) sum.status = SCHED_FAILED;
+    /* the record the writer failed on, and every one dropped after it */
+    size_t lost = r->lost + (recording_failed ? 1 : 0);
     stop_supervisor(r);
     if (sum.error[0]) fprintf(stderr, "precess run: %s\n", sum.error);
-    printf("run %s: %zu shots recorded ok, %zu failed attempts, %s; timing of %zu soft events: "
-           "p50 %.1f us, p99 %.1f us, max %.1f us\n", r->dir, ok, failed,
-           reason_of(sum.status), sum.nevents, sum.p50 * 1e6, sum.p99 * 1e6, sum.max * 1e6);
+    char lost_text[160] = "";
+    if (lost)
+        snprintf(lost_text, sizeof lost_text, ", %zu shot%s run but not recorded (the writer had "
+                 "failed; the journal does not list them)", lost, lost == 1 ? "" : "s");
+    printf("run %s: %zu shots recorded ok, %zu failed attempts%s, %s; timing of %zu soft "
+           "events: p50 %.1f us, p99 %.1f us, max %.1f us\n", r->dir, ok, failed, lost_text,
+           recording_failed ? "stopped: records could not be written" : reason_of(sum.status),
+           sum.nevents, sum.p50 * 1e6, sum.p99 * 1e6, sum.max * 1e6);
     return exit_status(sum.status);
 }
 
