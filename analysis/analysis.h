@@ -341,6 +341,9 @@ int an_export_csv_record(const char *path, const an_record *r, char *err, size_t
 typedef enum { AN_SERIES_NONE, AN_SERIES_RELAXATION, AN_SERIES_BUILDUP,
                AN_SERIES_CALIBRATION } an_series_kind;
 
+/* "relaxation", "buildup", "calibration", "none": the plan's words. */
+const char *an_series_name(an_series_kind k);
+
 /* What the plan's analysis: section asks, in plain values (the command line
  * reads the plan). */
 typedef struct {

@@ -1,6 +1,7 @@
 /* analysis_internal: what the analysis sources share and no other module
  * uses: the fit's reusable GSL workspace and a scratch buffer, both kept in
- * an an_work so that reducing record after record allocates nothing.
+ * an an_work so that reducing record after record allocates nothing; and
+ * the writer of whole files (outfile.c).
  * Not a public interface: callers outside analysis/ use analysis.h. */
 #ifndef PRECESS_ANALYSIS_INTERNAL_H
 #define PRECESS_ANALYSIS_INTERNAL_H
@@ -25,5 +26,17 @@ void an_lines_subtract(const an_line_fit *lines, size_t nlines, double rate, dou
  * memory). */
 an_fit_space **an_work_fit_space(an_work *w);
 double *an_work_scratch(an_work *w, size_t n);
+
+/* outfile.c: a file written whole: an_out_open makes a temporary file beside
+ * path (path must outlive it), writes are buffered (a failed one is kept and
+ * reported by an_out_finish), an_out_finish fsyncs and renames it into place,
+ * an_out_abort drops it. Open and finish return NULL / -1 with a message in
+ * err naming path and what failed; either way o is freed by finish and abort. */
+typedef struct an_out an_out;
+an_out *an_out_open(const char *path, char *err, size_t errlen);
+void an_out_write(an_out *o, const char *s, size_t len);
+void an_out_printf(an_out *o, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
+int an_out_finish(an_out *o, char *err, size_t errlen);
+void an_out_abort(an_out *o);
 
 #endif

@@ -3,7 +3,7 @@
  * JCAMP-DX in the two NMR forms this project needs: a real FID as XYDATA and
  * a complex spectrum as an NTUPLES pair of pages, both in AFFN. Not a
  * JCAMP-DX reader, and no compressed (ASDF), peak-table or 2D forms. */
-#include "analysis.h"
+#include "analysis_internal.h"
 
 #include <errno.h>
 #include <fcntl.h>
@@ -42,120 +42,6 @@
  * inside a 32-bit integer, which some readers use (common practice, no source). */
 #define Y_FULL_SCALE 999999999.0
 
-/* ---- a file written whole -------------------------------------------- */
-
-typedef struct {
-    const char *path;
-    char *tmp;          /* the temporary name, in path's folder */
-    int fd;
-    int error;          /* errno of the first failed write; 0 while all is well */
-    size_t used;
-    char buf[1 << 16];
-} out_file;
-
-static void out_flush(out_file *o) {
-    size_t done = 0;
-    while (!o->error && done < o->used) {
-        ssize_t k = write(o->fd, o->buf + done, o->used - done);
-        if (k < 0 && errno == EINTR) continue;
-        if (k <= 0) o->error = k < 0 ? errno : EIO;
-        else done += (size_t)k;
-    }
-    o->used = 0;
-}
-
-static void out_write(out_file *o, const char *s, size_t len) {
-    while (!o->error && len > 0) {
-        if (o->used == sizeof o->buf) out_flush(o);
-        size_t k = sizeof o->buf - o->used < len ? sizeof o->buf - o->used : len;
-        memcpy(o->buf + o->used, s, k);
-        o->used += k, s += k, len -= k;
-    }
-}
-
-static void out_printf(out_file *o, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
-static void out_printf(out_file *o, const char *fmt, ...) {
-    char line[1024];
-    va_list ap;
-    va_start(ap, fmt);
-    int len = vsnprintf(line, sizeof line, fmt, ap);
-    va_end(ap);
-    if (len < 0 || (size_t)len >= sizeof line) {
-        if (!o->error) o->error = EOVERFLOW;
-        return;
-    }
-    out_write(o, line, (size_t)len);
-}
-
-/* A temporary file beside path, or NULL with a message in err. */
-static out_file *out_open(const char *path, char *err, size_t errlen) {
-    const char *slash = strrchr(path, '/');
-    const char *base = slash ? slash + 1 : path;
-    int dirlen = slash ? (int)(slash - path) + 1 : 0;
-    if (!*base) {
-        snprintf(err, errlen, "%s: not written: the path names a folder, not a file", path);
-        return NULL;
-    }
-    out_file *o = malloc(sizeof *o);
-    size_t len = strlen(path) + 16;
-    char *tmp = malloc(len);
-    if (!o || !tmp) {
-        free(o), free(tmp);
-        snprintf(err, errlen, "%s: not written: out of memory", path);
-        return NULL;
-    }
-    snprintf(tmp, len, "%.*s.%s.XXXXXX", dirlen, path, base);
-    int fd = mkostemp(tmp, O_CLOEXEC);
-    if (fd < 0) {
-        snprintf(err, errlen, "%s: not written: cannot create a temporary file in its folder: %s",
-                 path, strerror(errno));
-        free(o), free(tmp);
-        return NULL;
-    }
-    (void)fchmod(fd, 0644);     /* mkostemp makes it 0600; an export is for others to read */
-    *o = (out_file){.path = path, .tmp = tmp, .fd = fd};
-    return o;
-}
-
-/* Drops the temporary file: nothing half-written is left. */
-static void out_abort(out_file *o) {
-    if (o->fd >= 0) close(o->fd);
-    unlink(o->tmp);
-    free(o->tmp);
-    free(o);
-}
-
-/* Everything written, fsync'd and renamed to its path; 0, or -1 with a
- * message naming the path and what failed (the temporary file removed). */
-static int out_finish(out_file *o, char *err, size_t errlen) {
-    out_flush(o);
-    const char *what = NULL;
-    int saved = o->error;
-    if (saved) what = "write";
-    else if (fsync(o->fd) != 0) what = "fsync", saved = errno;
-    if (close(o->fd) != 0 && !what) what = "close", saved = errno;
-    o->fd = -1;
-    if (!what && rename(o->tmp, o->path) != 0) what = "rename", saved = errno;
-    if (what) {
-        snprintf(err, errlen, "%s: not written (%s of the temporary file failed: %s)", o->path,
-                 what, strerror(saved));
-        out_abort(o);
-        return -1;
-    }
-    /* The folder's entry to disk too; best effort, as some file systems
-     * refuse fsync on a folder and the file itself is already whole. */
-    char *slash = strrchr(o->tmp, '/');
-    if (slash) slash[1] = '\0';
-    int dfd = open(slash ? o->tmp : ".", O_RDONLY | O_DIRECTORY | O_CLOEXEC);
-    if (dfd >= 0) {
-        (void)fsync(dfd);
-        close(dfd);
-    }
-    free(o->tmp);
-    free(o);
-    return 0;
-}
-
 /* ---- numbers and text ------------------------------------------------- */
 
 /* v in the fewest of 15, 16 or 17 significant digits that read back as v,
@@ -171,10 +57,10 @@ static void fmt_num(char out[32], double v) {
     if (e) *e = 'E';
 }
 
-static void put_num(out_file *o, const char *label, double v, const char *comment) {
+static void put_num(an_out *o, const char *label, double v, const char *comment) {
     char s[32];
     fmt_num(s, v);
-    out_printf(o, "##%s= %s%s%s\n", label, s, comment ? " $$ " : "", comment ? comment : "");
+    an_out_printf(o, "##%s= %s%s%s\n", label, s, comment ? " $$ " : "", comment ? comment : "");
 }
 
 /* A copy of s as a JCAMP-DX value can carry it: printable ASCII on one
@@ -199,7 +85,7 @@ static char *clean_text(const char *s) {
 /* ##LABEL= value, wrapped at spaces onto continuation lines so that no line
  * passes 80 characters ([4.24] a value runs on until the next "##" (from
  * memory)). Returns -1 when out of memory. */
-static int put_text(out_file *o, const char *label, const char *value) {
+static int put_text(an_out *o, const char *label, const char *value) {
     char *text = clean_text(value);
     if (!text) return -1;
     char first[LINE_CHARS + 1];
@@ -213,7 +99,7 @@ static int put_text(out_file *o, const char *label, const char *value) {
             while (space > 0 && s[space] != ' ') space--;
             if (space > 0) cut = space, next = space + 1;
         }
-        out_printf(o, "%s%.*s\n", prefix, (int)cut, s);
+        an_out_printf(o, "%s%.*s\n", prefix, (int)cut, s);
         prefix = "";
         s += next;
     } while (*s);
@@ -223,20 +109,20 @@ static int put_text(out_file *o, const char *label, const char *value) {
 
 /* ##LABEL= a, b, c: a list of AFFN or STRING items, continued on the next
  * line after a comma when the next item would pass 80 characters. */
-static void put_list(out_file *o, const char *label, const char *const *items, size_t n) {
+static void put_list(an_out *o, const char *label, const char *const *items, size_t n) {
     char line[LINE_CHARS + 2];
     int len = snprintf(line, sizeof line, "##%s=", label);
     for (size_t i = 0; i < n; i++) {
         const char *sep = i + 1 < n ? "," : "";
         size_t need = 1 + strlen(items[i]) + strlen(sep);
         if ((size_t)len + need > LINE_CHARS) {
-            out_printf(o, "%s\n", line);
+            an_out_printf(o, "%s\n", line);
             len = 0;
         }
         const char *gap = len && *items[i] ? " " : "";
         len += snprintf(line + len, sizeof line - (size_t)len, "%s%s%s", gap, items[i], sep);
     }
-    out_printf(o, "%s\n", line);
+    an_out_printf(o, "%s\n", line);
 }
 
 static int is_digit(char c) { return c >= '0' && c <= '9'; }
@@ -359,13 +245,13 @@ static scaled scale_of(const double *v, size_t n) {
  * ordinate, divided by XFACTOR, then ordinates (integers, times YFACTOR the
  * values), AFFN separated by a blank (from memory). Here XFACTOR is the step,
  * so the abscissas are x0_over + index. */
-static void put_table(out_file *o, const double *v, size_t n, double x0_over, double factor) {
+static void put_table(an_out *o, const double *v, size_t n, double x0_over, double factor) {
     char line[LINE_CHARS + 1], tok[32];
     int len = 0;
     for (size_t i = 0; i < n; i++) {
         int k = snprintf(tok, sizeof tok, "%lld", llround(v[i] / factor));
         if (len > 0 && len + 1 + k > LINE_CHARS) {
-            out_printf(o, "%s\n", line);
+            an_out_printf(o, "%s\n", line);
             len = 0;
         }
         if (len == 0) {
@@ -375,7 +261,7 @@ static void put_table(out_file *o, const double *v, size_t n, double x0_over, do
         }
         len += snprintf(line + len, sizeof line - (size_t)len, " %s", tok);
     }
-    if (len > 0) out_printf(o, "%s\n", line);
+    if (len > 0) an_out_printf(o, "%s\n", line);
 }
 
 /* [NMR] ##.OBSERVE NUCLEUS= ^1H: the mass number after a caret (from memory). */
@@ -389,30 +275,30 @@ static void nucleus_label(const char *nucleus, char *out, size_t len) {
  * MHz, ##.OBSERVE NUCLEUS=, ##.ACQUISITION MODE= SINGLE for one detection
  * channel (from memory); [4.24] labels starting with '$' hold data private to
  * a program (from memory). Returns -1 when out of memory. */
-static int put_header(out_file *o, const an_jcamp_meta *m, const char *type, const char *class) {
+static int put_header(an_out *o, const an_jcamp_meta *m, const char *type, const char *class) {
     char s[32], nucleus[AN_NAME + 2], date[64];
     int rc = put_text(o, "TITLE", m->title);
-    out_printf(o, "##JCAMP-DX= 5.01 $$ precess %s\n", PRECESS_VERSION);
-    out_printf(o, "##DATA TYPE= %s\n##DATA CLASS= %s\n", type, class);
+    an_out_printf(o, "##JCAMP-DX= 5.01 $$ precess %s\n", PRECESS_VERSION);
+    an_out_printf(o, "##DATA TYPE= %s\n##DATA CLASS= %s\n", type, class);
     rc |= put_text(o, "ORIGIN", m->origin);
     rc |= put_text(o, "OWNER", m->owner);
     if (m->when && *m->when && longdate_of(m->when, date, sizeof date) == 0)
-        out_printf(o, "##LONGDATE= %s\n", date);
+        an_out_printf(o, "##LONGDATE= %s\n", date);
     fmt_num(s, fabs(m->observe_frequency) / 1e6);
-    out_printf(o, "##.OBSERVE FREQUENCY= %s%s\n", s,
+    an_out_printf(o, "##.OBSERVE FREQUENCY= %s%s\n", s,
                m->observe_frequency == 0 ? " $$ not known" : "");
     nucleus_label(m->nucleus, nucleus, sizeof nucleus);
     rc |= put_text(o, ".OBSERVE NUCLEUS", nucleus);
-    out_printf(o, "##.ACQUISITION MODE= SINGLE\n");
+    an_out_printf(o, "##.ACQUISITION MODE= SINGLE\n");
     rc |= put_text(o, "$PRECESS RUN", m->origin);
-    out_printf(o, "##$PRECESS VERSION= %s\n", PRECESS_VERSION);
+    an_out_printf(o, "##$PRECESS VERSION= %s\n", PRECESS_VERSION);
     put_num(o, "$PRECESS LARMOR FREQUENCY", m->observe_frequency, "Hz, signed; 0: not known");
     if (m->units && *m->units) rc |= put_text(o, "$PRECESS UNITS", m->units);
     return rc;
 }
 
-static int fail_memory(out_file *o, const char *path, char *err, size_t errlen) {
-    out_abort(o);
+static int fail_memory(an_out *o, const char *path, char *err, size_t errlen) {
+    an_out_abort(o);
     snprintf(err, errlen, "%s: not written: out of memory", path);
     return -1;
 }
@@ -422,13 +308,13 @@ int an_export_jcamp_fid(const char *path, const an_jcamp_meta *m, const double *
     if (check_axis(path, n, t0, dt, err, errlen) || check_meta(path, m, err, errlen) ||
         check_values(path, "y", y, n, err, errlen))
         return -1;
-    out_file *o = out_open(path, err, errlen);
+    an_out *o = an_out_open(path, err, errlen);
     if (!o) return -1;
     if (put_header(o, m, "NMR FID", "XYDATA") != 0) return fail_memory(o, path, err, errlen);
     scaled s = scale_of(y, n);
     /* [4.24] the core labels of an equally spaced table (from memory):
      * FIRSTX and LASTX in XUNITS, FIRSTY the first ordinate in YUNITS. */
-    out_printf(o, "##XUNITS= SECONDS\n##YUNITS= ARBITRARY UNITS\n");
+    an_out_printf(o, "##XUNITS= SECONDS\n##YUNITS= ARBITRARY UNITS\n");
     put_num(o, "XFACTOR", dt, NULL);
     put_num(o, "YFACTOR", s.factor, NULL);
     put_num(o, "FIRSTX", t0, "s from the shot's start");
@@ -436,27 +322,27 @@ int an_export_jcamp_fid(const char *path, const an_jcamp_meta *m, const double *
     put_num(o, "DELTAX", dt, NULL);
     put_num(o, "MAXY", s.max, NULL);
     put_num(o, "MINY", s.min, NULL);
-    out_printf(o, "##NPOINTS= %zu\n", n);
+    an_out_printf(o, "##NPOINTS= %zu\n", n);
     put_num(o, "FIRSTY", s.first, NULL);
-    out_printf(o, "##XYDATA= (X++(Y..Y))\n");
+    an_out_printf(o, "##XYDATA= (X++(Y..Y))\n");
     put_table(o, y, n, t0 / dt, s.factor);
-    out_printf(o, "##END=\n");
-    return out_finish(o, err, errlen);
+    an_out_printf(o, "##END=\n");
+    return an_out_finish(o, err, errlen);
 }
 
 /* [NMR] one page of an NTUPLES block: ##PAGE= N=k, its ##NPOINTS= and
  * ##DATA TABLE= (X++(R..R)), XYDATA (from memory). */
-static void put_page(out_file *o, int page, char symbol, const double *v, size_t n,
+static void put_page(an_out *o, int page, char symbol, const double *v, size_t n,
                      double f0_over, double factor) {
-    out_printf(o, "##PAGE= N=%d\n##NPOINTS= %zu\n", page, n);
-    out_printf(o, "##DATA TABLE= (X++(%c..%c)), XYDATA\n", symbol, symbol);
+    an_out_printf(o, "##PAGE= N=%d\n##NPOINTS= %zu\n", page, n);
+    an_out_printf(o, "##DATA TABLE= (X++(%c..%c)), XYDATA\n", symbol, symbol);
     put_table(o, v, n, f0_over, factor);
 }
 
 /* [NMR] the attribute lists of a 1D NTUPLES block: one column per variable
  * (frequency, real, imaginary, page number); VAR_DIM and the page variable
  * (from memory; the label names read in the nD-NMR notes). */
-static void put_attributes(out_file *o, size_t n, double f0, double df, const scaled *re,
+static void put_attributes(an_out *o, size_t n, double f0, double df, const scaled *re,
                            const scaled *im) {
     char dim[24], v[5][4][32];
     snprintf(dim, sizeof dim, "%zu", n);
@@ -471,7 +357,7 @@ static void put_attributes(out_file *o, size_t n, double f0, double df, const sc
                           {f0, re->min, im->min, 1},     {fl, re->max, im->max, 2},
                           {df, re->factor, im->factor, 1}};
     const char *labels[] = {"FIRST", "LAST", "MIN", "MAX", "FACTOR"};
-    out_printf(o, "##NTUPLES= NMR SPECTRUM\n");
+    an_out_printf(o, "##NTUPLES= NMR SPECTRUM\n");
     put_list(o, "VAR_NAME", names, 4);
     put_list(o, "SYMBOL", symbols, 4);
     put_list(o, "VAR_TYPE", types, 4);
@@ -492,22 +378,22 @@ int an_export_jcamp_spectrum(const char *path, const an_jcamp_meta *m, const dou
         check_values(path, "re", re, n, err, errlen) ||
         check_values(path, "im", im, n, err, errlen))
         return -1;
-    out_file *o = out_open(path, err, errlen);
+    an_out *o = an_out_open(path, err, errlen);
     if (!o) return -1;
     if (put_header(o, m, "NMR SPECTRUM", "NTUPLES") != 0) return fail_memory(o, path, err, errlen);
     scaled sr = scale_of(re, n), si = scale_of(im, n);
     put_attributes(o, n, f0, df, &sr, &si);
     put_page(o, 1, 'R', re, n, f0 / df, sr.factor);
     put_page(o, 2, 'I', im, n, f0 / df, si.factor);
-    out_printf(o, "##END NTUPLES= NMR SPECTRUM\n##END=\n");
-    return out_finish(o, err, errlen);
+    an_out_printf(o, "##END NTUPLES= NMR SPECTRUM\n##END=\n");
+    return an_out_finish(o, err, errlen);
 }
 
 /* ---- CSV --------------------------------------------------------------- */
 
 /* A name as one word of the header line: printable ASCII, blanks and '='
  * as '_', so that "key=value" pairs split on blanks. */
-static void put_word(out_file *o, const char *key, const char *value) {
+static void put_word(an_out *o, const char *key, const char *value) {
     char word[AN_NAME + 16];
     size_t k = 0;
     for (const char *s = value; *s && k + 1 < sizeof word; s++) {
@@ -515,7 +401,7 @@ static void put_word(out_file *o, const char *key, const char *value) {
         word[k++] = c > 0x20 && c < 0x7f && c != '=' ? (char)c : '_';
     }
     word[k] = '\0';
-    out_printf(o, " %s=%s", key, k ? word : "-");
+    an_out_printf(o, " %s=%s", key, k ? word : "-");
 }
 
 int an_export_csv_record(const char *path, const an_record *r, char *err, size_t errlen) {
@@ -528,24 +414,24 @@ int an_export_csv_record(const char *path, const an_record *r, char *err, size_t
                  "that is not > 0", path);
         return -1;
     }
-    out_file *o = out_open(path, err, errlen);
+    an_out *o = an_out_open(path, err, errlen);
     if (!o) return -1;
     char rate[32], t0[32], t[32];
     fmt_num(rate, r->rate);
     fmt_num(t0, r->t0);
-    out_printf(o, "# precess record:");
+    an_out_printf(o, "# precess record:");
     put_word(o, "run", r->run);
-    out_printf(o, " shot=%d attempt=%d point=%d average=%d", r->shot, r->attempt, r->point,
+    an_out_printf(o, " shot=%d attempt=%d point=%d average=%d", r->shot, r->attempt, r->point,
                r->average);
     put_word(o, "input", r->input);
     put_word(o, "units", r->units);
-    out_printf(o, " sample_rate=%s t0=%s receiver_sign=%d", rate, t0, r->receiver_sign);
+    an_out_printf(o, " sample_rate=%s t0=%s receiver_sign=%d", rate, t0, r->receiver_sign);
     put_word(o, "started_utc", r->started_utc);
-    out_printf(o, "\ntime,value\n");
+    an_out_printf(o, "\ntime,value\n");
     for (size_t i = 0; i < r->n; i++) {
         /* %.9g: nine significant digits read back as the same float32. */
         fmt_num(t, r->t0 + (double)i / r->rate);
-        out_printf(o, "%s,%.9g\n", t, (double)r->samples[i]);
+        an_out_printf(o, "%s,%.9g\n", t, (double)r->samples[i]);
     }
-    return out_finish(o, err, errlen);
+    return an_out_finish(o, err, errlen);
 }

@@ -3,7 +3,7 @@
  * spectrum plot per point, each series with its fit, the dispersion profile
  * and the spectral map. Each file is written whole (temporary name, then
  * renamed). Not for the reduction itself (run.c) nor drawing (plot.c). */
-#include "analysis.h"
+#include "analysis_internal.h"
 #include "plot_page.h"
 
 #include <errno.h>
@@ -18,35 +18,20 @@
 #define MAX_POINT_PLOTS 48      /* record plots: every point up to this many */
 #define MAP_COLUMNS 800         /* frequency bins of the spectral map */
 
-typedef struct {
-    FILE *f;
-    char path[4400], tmp[4450];
-} out_file;
-
-static int out_open(out_file *o, const char *dir, const char *name, char *err, size_t errlen) {
-    snprintf(o->path, sizeof o->path, "%s/%s", dir, name);
-    snprintf(o->tmp, sizeof o->tmp, "%s/.%s.tmp", dir, name);
-    o->f = fopen(o->tmp, "w");
-    if (!o->f) snprintf(err, errlen, "cannot write %s: %s", o->tmp, strerror(errno));
-    return o->f ? 0 : -1;
-}
-
-static int out_close(out_file *o, char *err, size_t errlen) {
-    int bad = ferror(o->f) | fflush(o->f) | fsync(fileno(o->f));
-    bad |= fclose(o->f);
-    if (!bad && rename(o->tmp, o->path) == 0) return 0;
-    snprintf(err, errlen, "cannot write %s: %s", o->path, strerror(errno));
-    unlink(o->tmp);
-    return -1;
+/* dir/name, opened to be written whole (outfile.c). */
+static an_out *open_in(const char *dir, const char *name, char *path, size_t n, char *err,
+                       size_t errlen) {
+    snprintf(path, n, "%s/%s", dir, name);
+    return an_out_open(path, err, errlen);
 }
 
 /* A number for a CSV cell: empty when unknown, round-trip exact. */
-static void cell(FILE *f, double v) {
-    if (isnan(v)) fputs(",", f);
-    else fprintf(f, ",%.17g", v);
+static void cell(an_out *f, double v) {
+    if (isnan(v)) an_out_write(f, ",", 1);
+    else an_out_printf(f, ",%.17g", v);
 }
 
-static void line_cells(FILE *f, const an_shot *s, bool ok) {
+static void line_cells(an_out *f, const an_shot *s, bool ok) {
     const an_line_fit *l = ok && s->nlines ? &s->lines[0] : NULL;
     double nan = NAN;
     cell(f, l ? l->frequency : nan);
@@ -58,87 +43,83 @@ static void line_cells(FILE *f, const an_shot *s, bool ok) {
     cell(f, l ? l->linewidth_err : nan);
     cell(f, l ? l->snr : nan);
     cell(f, ok ? s->noise : nan);
-    fprintf(f, ",%zu", ok ? s->nlines : 0);
+    an_out_printf(f, ",%zu", ok ? s->nlines : 0);
 }
 
 static const char LINE_HEADER[] = "frequency,frequency_err,amplitude,amplitude_err,phase,"
                                   "linewidth,linewidth_err,snr,noise,lines";
 
 static int write_shots(const an_run *r, const char *dir, char *err, size_t errlen) {
-    out_file o;
-    if (out_open(&o, dir, "shots.csv", err, errlen) != 0) return -1;
-    fprintf(o.f, "shot,point,average,kind,x,%s,error\n", LINE_HEADER);
+    char path[4400];
+    an_out *o = open_in(dir, "shots.csv", path, sizeof path, err, errlen);
+    if (!o) return -1;
+    an_out_printf(o, "shot,point,average,kind,x,%s,error\n", LINE_HEADER);
     for (size_t i = 0; i < r->nshots; i++) {
         const an_shot_entry *e = &r->shots[i];
-        fprintf(o.f, "%d,%d,%d,%s", e->shot, e->point, e->average, e->kind);
-        cell(o.f, e->x);
-        line_cells(o.f, &e->result, e->reduced);
-        fprintf(o.f, ",\"%s\"\n", e->reduced ? "" : e->error);
+        an_out_printf(o, "%d,%d,%d,%s", e->shot, e->point, e->average, e->kind);
+        cell(o, e->x);
+        line_cells(o, &e->result, e->reduced);
+        an_out_printf(o, ",\"%s\"\n", e->reduced ? "" : e->error);
     }
-    return out_close(&o, err, errlen);
+    return an_out_finish(o, err, errlen);
 }
 
 static int write_points(const an_run *r, const char *dir, char *err, size_t errlen) {
-    out_file o;
-    if (out_open(&o, dir, "points.csv", err, errlen) != 0) return -1;
-    fprintf(o.f, "point,shots");
-    for (size_t j = 0; j < r->nparameters; j++) fprintf(o.f, ",%s", r->parameter[j]);
-    fprintf(o.f, ",x,field,%s\n", LINE_HEADER);
+    char path[4400];
+    an_out *o = open_in(dir, "points.csv", path, sizeof path, err, errlen);
+    if (!o) return -1;
+    an_out_printf(o, "point,shots");
+    for (size_t j = 0; j < r->nparameters; j++) an_out_printf(o, ",%s", r->parameter[j]);
+    an_out_printf(o, ",x,field,%s\n", LINE_HEADER);
     for (size_t i = 0; i < r->npoints; i++) {
         const an_point_entry *pe = &r->points[i];
         if (!pe->nshots) continue;
-        fprintf(o.f, "%d,%zu", pe->point, pe->nshots);
-        for (size_t j = 0; j < r->nparameters; j++) cell(o.f, pe->parameters[j]);
-        cell(o.f, pe->x);
-        cell(o.f, pe->field);
-        line_cells(o.f, &pe->result, pe->reduced);
-        fputc('\n', o.f);
+        an_out_printf(o, "%d,%zu", pe->point, pe->nshots);
+        for (size_t j = 0; j < r->nparameters; j++) cell(o, pe->parameters[j]);
+        cell(o, pe->x);
+        cell(o, pe->field);
+        line_cells(o, &pe->result, pe->reduced);
+        an_out_write(o, "\n", 1);
     }
-    return out_close(&o, err, errlen);
-}
-
-static const char *series_name(an_series_kind k) {
-    return k == AN_SERIES_RELAXATION ? "relaxation"
-           : k == AN_SERIES_BUILDUP  ? "buildup"
-           : k == AN_SERIES_CALIBRATION ? "calibration"
-                                         : "none";
+    return an_out_finish(o, err, errlen);
 }
 
 static int write_fits(const an_run *r, const an_plan *p, const char *dir, char *err,
                       size_t errlen) {
-    out_file o;
-    if (out_open(&o, dir, "fits.csv", err, errlen) != 0) return -1;
-    fprintf(o.f, "fit,per,per_value,points,fitted,t1,t1_err,r1,r1_err,amplitude,"
-                 "amplitude_err,offset,offset_err,k,k_err,b_z,b_z_err,b_perp,b_perp_err,"
-                 "chi2_dof\n");
+    char path[4400];
+    an_out *o = open_in(dir, "fits.csv", path, sizeof path, err, errlen);
+    if (!o) return -1;
+    an_out_printf(o, "fit,per,per_value,points,fitted,t1,t1_err,r1,r1_err,amplitude,"
+                  "amplitude_err,offset,offset_err,k,k_err,b_z,b_z_err,b_perp,b_perp_err,"
+                  "chi2_dof\n");
     for (size_t i = 0; i < r->nseries; i++) {
         const an_series_entry *s = &r->series[i];
-        fprintf(o.f, "%s,%s", series_name(s->fit), p->per ? p->per : "");
-        cell(o.f, s->per);
-        fprintf(o.f, ",%zu,%d", s->n, s->fitted ? 1 : 0);
+        an_out_printf(o, "%s,%s", an_series_name(s->fit), p->per ? p->per : "");
+        cell(o, s->per);
+        an_out_printf(o, ",%zu,%d", s->n, s->fitted ? 1 : 0);
         const an_decay_fit *d = &s->decay;
         const an_calibration_fit *c = &s->calibration;
         bool decay = s->fitted && s->fit != AN_SERIES_CALIBRATION;
         bool cal = s->fitted && s->fit == AN_SERIES_CALIBRATION;
         double nan = NAN;
-        cell(o.f, decay ? d->t1 : nan);
-        cell(o.f, decay ? d->t1_err : nan);
-        cell(o.f, decay ? 1 / d->t1 : nan);
-        cell(o.f, decay ? d->t1_err / (d->t1 * d->t1) : nan);
-        cell(o.f, decay ? d->amplitude : nan);
-        cell(o.f, decay ? d->amplitude_err : nan);
-        cell(o.f, decay ? d->offset : nan);
-        cell(o.f, decay ? d->offset_err : nan);
-        cell(o.f, cal ? c->k : nan);
-        cell(o.f, cal ? c->k_err : nan);
-        cell(o.f, cal ? c->b_z : nan);
-        cell(o.f, cal ? c->b_z_err : nan);
-        cell(o.f, cal ? c->b_perp : nan);
-        cell(o.f, cal ? c->b_perp_err : nan);
-        cell(o.f, s->fitted ? (decay ? d->chi2_dof : c->chi2_dof) : nan);
-        fputc('\n', o.f);
+        cell(o, decay ? d->t1 : nan);
+        cell(o, decay ? d->t1_err : nan);
+        cell(o, decay ? 1 / d->t1 : nan);
+        cell(o, decay ? d->t1_err / (d->t1 * d->t1) : nan);
+        cell(o, decay ? d->amplitude : nan);
+        cell(o, decay ? d->amplitude_err : nan);
+        cell(o, decay ? d->offset : nan);
+        cell(o, decay ? d->offset_err : nan);
+        cell(o, cal ? c->k : nan);
+        cell(o, cal ? c->k_err : nan);
+        cell(o, cal ? c->b_z : nan);
+        cell(o, cal ? c->b_z_err : nan);
+        cell(o, cal ? c->b_perp : nan);
+        cell(o, cal ? c->b_perp_err : nan);
+        cell(o, s->fitted ? (decay ? d->chi2_dof : c->chi2_dof) : nan);
+        an_out_write(o, "\n", 1);
     }
-    return out_close(&o, err, errlen);
+    return an_out_finish(o, err, errlen);
 }
 
 /* ---- plots ------------------------------------------------------------- */
@@ -160,7 +141,7 @@ typedef struct {
     const an_plan *p;
     char dir[4200];
     double *t, *y, *fit, *f, *mag, *fit_mag, *map, *map_y, *map_strength;
-    size_t cap, spec_cap, map_rows;
+    size_t map_rows;
     double map_fmax;
 } plotter;
 
@@ -327,8 +308,8 @@ static const char *field_text(double b, char *buf, size_t n) {
 
 static void series_title(const plotter *z, const an_series_entry *s, char *buf, size_t n) {
     char q[64];
-    if (isnan(s->per)) snprintf(buf, n, "%s", series_name(s->fit));
-    else snprintf(buf, n, "%s at %s = %s", series_name(s->fit), z->p->per,
+    if (isnan(s->per)) snprintf(buf, n, "%s", an_series_name(s->fit));
+    else snprintf(buf, n, "%s at %s = %s", an_series_name(s->fit), z->p->per,
                   quantity(z->p, z->p->per, s->per, q, sizeof q));
 }
 
@@ -378,8 +359,8 @@ static int plot_series(plotter *z, const an_series_entry *s, size_t index, char 
     if (p->against_coil) snprintf(xname, sizeof xname, "current of %s", p->against_coil);
     else snprintf(xname, sizeof xname, "%s", p->against ? p->against : "x");
     if (s->fit == AN_SERIES_CALIBRATION) snprintf(base, sizeof base, "%s/calibration", z->dir);
-    else if (isnan(s->per)) snprintf(base, sizeof base, "%s/%s", z->dir, series_name(s->fit));
-    else snprintf(base, sizeof base, "%s/%s-%02zu", z->dir, series_name(s->fit), index + 1);
+    else if (isnan(s->per)) snprintf(base, sizeof base, "%s/%s", z->dir, an_series_name(s->fit));
+    else snprintf(base, sizeof base, "%s/%s-%02zu", z->dir, an_series_name(s->fit), index + 1);
     an_plot_curve d = {.title = title, .x_name = xname,
                        .x_unit = p->against_coil ? "A" : p->against_unit,
                        .y_name = decay ? "amplitude" : "line frequency",

@@ -407,6 +407,13 @@ static int fit_series(an_run *r, const an_plan *p) {
     return rc;
 }
 
+const char *an_series_name(an_series_kind k) {
+    return k == AN_SERIES_RELAXATION    ? "relaxation"
+           : k == AN_SERIES_BUILDUP     ? "buildup"
+           : k == AN_SERIES_CALIBRATION ? "calibration"
+                                        : "none";
+}
+
 int an_run_reduce(an_run *r, const an_plan *p, char *err, size_t errlen) {
     if (reduce_all(r, p, err, errlen) != 0) return -1;
     if (p->fit == AN_SERIES_NONE) return 0;

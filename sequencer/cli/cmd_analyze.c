@@ -106,8 +106,7 @@ static json_t *result_json(json_t *o, const an_shot *s, bool reduced) {
 }
 
 static json_t *fit_json(const an_plan *p, const an_series_entry *s) {
-    static const char *names[] = {"none", "relaxation", "buildup", "calibration"};
-    json_t *o = json_pack("{s:s, s:I, s:b}", "fit", names[s->fit], "points", (json_int_t)s->n,
+    json_t *o = json_pack("{s:s, s:I, s:b}", "fit", an_series_name(s->fit), "points", (json_int_t)s->n,
                           "fitted", s->fitted);
     if (!isnan(s->per)) {
         json_t *per = json_object();
