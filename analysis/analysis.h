@@ -193,6 +193,14 @@ typedef struct {
     double rate;
 } an_shot;
 
+/* The record (or an average) ready to look at: its window, DC removed,
+ * receiver sign applied, and with line_noise set the mains comb removed
+ * (strong lines set aside while it is fitted, so that none is pulled onto
+ * a harmonic). tr->y is the work space's, valid until its next use; mains
+ * gets what was removed. Returns 0, or -1 with a message in err. */
+int an_trace_of(an_work *w, const an_record *r, const an_settings *s, an_trace *tr,
+                an_mains *mains, char *err, size_t errlen);
+
 /* Reduce one record (or an average made by an_average_*): window, DC,
  * receiver sign, line noise, spectrum, peaks, fit, SNR. Returns 0, or -1
  * with a message in err. A record without a line above min_snr is not an

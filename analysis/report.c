@@ -180,14 +180,10 @@ static const char *parameters_text(const plotter *z, const an_point_entry *pe, c
 static int point_spectra(plotter *z, const an_point_entry *pe, an_record *avg, an_trace *tr,
                          an_spectrum *sp, char *err, size_t errlen) {
     const an_settings *st = &z->p->settings;
-    if (an_run_point_average(z->r, pe->point, avg, err, errlen) != 0) return -1;
-    if (an_prepare(z->w, avg->samples, avg->n, avg->rate, avg->t0, avg->receiver_sign,
-                   st->window_from, st->window_to, tr) != 0) {
-        snprintf(err, errlen, "point %d: too few samples in the window", pe->point);
-        return -1;
-    }
     an_mains mains;
-    if (st->line_noise > 0) an_remove_mains(tr->y, tr->n, tr->rate, st->line_noise, 0.5, &mains);
+    if (an_run_point_average(z->r, pe->point, avg, err, errlen) != 0 ||
+        an_trace_of(z->w, avg, st, tr, &mains, err, errlen) != 0)
+        return -1;
     if (grow(&z->t, tr->n) || grow(&z->y, tr->n) || grow(&z->fit, tr->n)) return -1;
     for (size_t i = 0; i < tr->n; i++) {
         z->t[i] = tr->t_first + (double)i / tr->rate;
@@ -437,7 +433,7 @@ static int plot_all(plotter *z, char *err, size_t errlen) {
     int rc = 0;
     for (size_t i = 0, seen = 0; rc == 0 && i < r->npoints; i++) {
         const an_point_entry *pe = &r->points[i];
-        if (!pe->nshots) continue;
+        if (!pe->nshots || !pe->reduced) continue;  /* points.csv says why not */
         rc = plot_point(z, pe, seen++ % every == 0, err, errlen);
     }
     for (size_t i = 0; rc == 0 && i < r->nseries; i++) rc = plot_series(z, &r->series[i], i, err, errlen);

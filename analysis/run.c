@@ -288,10 +288,7 @@ static void refit_at(const an_run *r, const an_plan *p, an_point_entry *pe,
     an_trace tr;
     an_spectrum sp;
     an_mains mains;
-    if (an_prepare(w, avg.samples, avg.n, avg.rate, avg.t0, avg.receiver_sign,
-                   st->window_from, st->window_to, &tr) == 0 &&
-        (st->line_noise <= 0 || an_remove_mains(tr.y, tr.n, tr.rate, st->line_noise, 0.5,
-                                                &mains) == 0) &&
+    if (an_trace_of(w, &avg, st, &tr, &mains, err, sizeof err) == 0 &&
         an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, 1, &sp) == 0) {
         size_t k = (size_t)llround(ref->frequency / sp.df);
         double t_start = isnan(avg.pulse_end) ? 0 : tr.t_first - avg.pulse_end;

@@ -428,24 +428,32 @@ static int check_input(const an_record *r, const an_settings *s, char *err, size
     return 0;
 }
 
-int an_reduce(an_work *w, const an_record *r, const an_settings *s, an_shot *out, char *err,
-              size_t errlen) {
-    if (!w || !out || check_input(r, s, err, errlen)) return -1;
-    memset(out, 0, sizeof *out);
-    an_trace tr;
+int an_trace_of(an_work *w, const an_record *r, const an_settings *s, an_trace *tr,
+                an_mains *mains, char *err, size_t errlen) {
+    if (!w || !tr || !mains || check_input(r, s, err, errlen)) return -1;
+    memset(mains, 0, sizeof *mains);
     if (an_prepare(w, r->samples, r->n, r->rate, r->t0, r->receiver_sign, s->window_from,
-                   s->window_to, &tr))
+                   s->window_to, tr))
         return say(err, errlen, "shot %d: the window from %g s to %g s leaves fewer than 16 "
                    "of the record's %zu samples", r->shot, s->window_from, s->window_to, r->n);
-    if (!isfinite(tr.dc))
+    if (!isfinite(tr->dc))
         return say(err, errlen, "shot %d: the record holds samples that are not finite "
                    "numbers (NaN or infinite) in the window", r->shot);
-    double t_ref = isnan(r->pulse_end) ? tr.t_first : r->pulse_end;
+    double t_ref = isnan(r->pulse_end) ? tr->t_first : r->pulse_end;
     if (s->line_noise > 0 &&
-        remove_line_noise(w, &tr, s->line_noise, tr.t_first - t_ref, &out->mains))
+        remove_line_noise(w, tr, s->line_noise, tr->t_first - t_ref, mains))
         return say(err, errlen, "shot %d: line noise at %g Hz could not be removed (is it "
                    "below the Nyquist frequency, %g Hz?)", r->shot, s->line_noise,
-                   0.5 * tr.rate);
+                   0.5 * tr->rate);
+    return 0;
+}
+
+int an_reduce(an_work *w, const an_record *r, const an_settings *s, an_shot *out, char *err,
+              size_t errlen) {
+    if (!out) return -1;
+    memset(out, 0, sizeof *out);
+    an_trace tr;
+    if (an_trace_of(w, r, s, &tr, &out->mains, err, errlen)) return -1;
     out->t_first = tr.t_first;
     out->t_ref = isnan(r->pulse_end) ? tr.t_first : r->pulse_end;
     out->n = tr.n;

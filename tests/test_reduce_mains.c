@@ -80,6 +80,36 @@ static void test_strong_line_near_a_reachable_harmonic_is_kept_whole(void **stat
     an_record_free(&r);
 }
 
+/* What plots and exports see (an_trace_of) is the record without its comb,
+ * the strong line near a reachable harmonic intact: it differs from the
+ * same record made without a comb by far less than the comb itself. */
+static void test_trace_of_removes_the_comb_and_keeps_the_line(void **state) {
+    (void)state;
+    an_record with = record_with(1.5e-10, 1163.3, 0.3, 1e-12, 50.0, 5e-14, 3);
+    an_record without = record_with(1.5e-10, 1163.3, 0.3, 0, 50.0, 5e-14, 3);
+    an_settings s;
+    an_settings_default(&s);
+    s.line_noise = 50;
+    an_work *w = an_work_new(), *w0 = an_work_new();
+    an_trace tr, tr0;
+    an_mains m, m0;
+    char err[256] = "";
+    assert_int_equal(an_trace_of(w, &with, &s, &tr, &m, err, sizeof err), 0);
+    s.line_noise = 0;
+    assert_int_equal(an_trace_of(w0, &without, &s, &tr0, &m0, err, sizeof err), 0);
+    assert_int_equal(tr.n, tr0.n);
+    double d = 0;
+    for (size_t i = 0; i < tr.n; i++) d += (tr.y[i] - tr0.y[i]) * (tr.y[i] - tr0.y[i]);
+    d = sqrt(d / (double)tr.n);
+    if (!(d < 0.1 * m.rms_removed))
+        fail_msg("the cleaned trace is %.3g from the comb-free one (comb rms %.3g)", d,
+                 m.rms_removed);
+    an_work_free(w);
+    an_work_free(w0);
+    an_record_free(&with);
+    an_record_free(&without);
+}
+
 /* A drifted mains (49.8 Hz) under a weaker line: found and removed. */
 static void test_drifted_comb_is_found_beside_a_line(void **state) {
     (void)state;
@@ -95,6 +125,7 @@ int main(void) {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_strong_line_near_a_reachable_harmonic_is_kept_whole),
         cmocka_unit_test(test_drifted_comb_is_found_beside_a_line),
+        cmocka_unit_test(test_trace_of_removes_the_comb_and_keeps_the_line),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -72,14 +72,8 @@ static int export_jcamp(exporter *x, const an_shot_entry *e, const an_record *re
     const an_settings *s = &x->plan.settings;
     an_trace tr;
     an_spectrum sp;
-    if (rc == 0 && an_prepare(x->w, rec->samples, rec->n, rec->rate, rec->t0, rec->receiver_sign,
-                              s->window_from, s->window_to, &tr) != 0) {
-        snprintf(err, errlen, "shot %d: too few samples in the analysis window", e->shot);
-        rc = -1;
-    }
     an_mains mains;
-    if (rc == 0 && s->line_noise > 0)
-        an_remove_mains(tr.y, tr.n, tr.rate, s->line_noise, 0.5, &mains);
+    if (rc == 0 && an_trace_of(x->w, rec, s, &tr, &mains, err, errlen) != 0) rc = -1;
     if (rc == 0 && an_spectrum_of(x->w, tr.y, tr.n, tr.rate, 0, 1, &sp) != 0) {
         snprintf(err, errlen, "out of memory");
         rc = -1;
