@@ -10,11 +10,11 @@ FUZZ_SECONDS ?= 60
 
 # Debian packages the build, the tests and the demo need.
 DEB_PACKAGES := pkg-config libyaml-dev libev-dev libcomedi-dev libcmocka-dev \
-  libhdf5-dev libjansson-dev libfftw3-dev libgsl-dev libplplot-dev \
+  libhdf5-dev libdeflate-dev libjansson-dev libfftw3-dev libgsl-dev libplplot-dev \
   plplot-driver-cairo python3 python3-numpy python3-scipy python3-h5py
 FUZZ_PACKAGES := clang libclang-rt-14-dev
 
-PKGS := yaml-0.1 jansson gsl plplot hdf5 fftw3
+PKGS := yaml-0.1 jansson gsl plplot hdf5 fftw3 libdeflate
 PKG_CFLAGS = $(shell pkg-config --cflags $(PKGS) 2>/dev/null)
 PKG_LIBS = $(shell pkg-config --libs $(PKGS) 2>/dev/null)
 

@@ -60,32 +60,58 @@ static int rewrite(const char *run, const char *out, size_t *n) {
     return 0;
 }
 
-int main(int argc, char **argv) {
-    const char *precess = argc > 1 ? argv[1] : "build/precess";
-    char dir[] = "/tmp/precess-bench-fast-XXXXXX", cmd[8192], path[4096];
-    if (bench_plan(dir, PLAN, precess, cmd, sizeof cmd) != 0) return 1;
+/* One `run --fast` of the plan into dir/NAME; its seconds, or -1. */
+static double timed_run(const char *precess, const char *dir, const char *name) {
+    char cmd[8192];
+    snprintf(cmd, sizeof cmd, "%s run %s/plan.yaml --fast --out %s/%s >/dev/null 2>&1", precess,
+             dir, dir, name);
     double t0 = bench_now();
     int rc = system(cmd);
-    double t_run = bench_now() - t0;
-    size_t n = 0;
-    snprintf(path, sizeof path, "%s/again", dir);
-    t0 = bench_now();
-    char run[4096];
-    snprintf(run, sizeof run, "%s/run", dir);
-    int rc2 = rewrite(run, path, &n);
-    double t_limit = bench_now() - t0;
+    return rc == 0 ? bench_now() - t0 : -1;
+}
+
+/* Runs and limits take turns (run, limit, run, limit, run), and each limit
+ * is set against the mean of the runs either side of it: the file system's
+ * own cost of making a file drifts (ext4 looks past the inodes freed in the
+ * last half minute, so a bench right after removing thousands of files pays
+ * more at first, and a shared disk has its moods), and both sides get the
+ * same. The ratio printed is the mean of the two. */
+#define LIMITS 2
+int main(int argc, char **argv) {
+    const char *precess = argc > 1 ? argv[1] : "build/precess";
+    char dir[] = "/tmp/precess-bench-fast-XXXXXX", cmd[8192], path[4096], run[4096], name[32];
+    if (bench_plan(dir, PLAN, precess, cmd, sizeof cmd) != 0) return 1;
+    double t_run[LIMITS + 1], t_limit[LIMITS];
+    size_t n[LIMITS] = {0};
+    int bad = 0;
+    snprintf(run, sizeof run, "%s/run0", dir);
+    for (int i = 0; i <= LIMITS && !bad; i++) {
+        snprintf(name, sizeof name, "run%d", i);
+        t_run[i] = timed_run(precess, dir, name);
+        bad = t_run[i] < 0;
+        if (i == LIMITS || bad) break;
+        snprintf(path, sizeof path, "%s/again%d", dir, i);
+        double t0 = bench_now();
+        bad = rewrite(run, path, &n[i]) != 0 || n[i] != 1000;
+        t_limit[i] = bench_now() - t0;
+    }
     snprintf(cmd, sizeof cmd, "rm -rf %s", dir);
     if (system(cmd)) {
     }
-    if (rc || rc2 || n != 1000) {
-        fprintf(stderr, "bench/fast: the run failed (%d, %d, %zu records)\n", rc, rc2, n);
+    if (bad) {
+        fprintf(stderr, "bench/fast: a run or the limit's rewrite failed\n");
         return 1;
     }
-    double shots = 1000 / t_run, limit = (double)n / t_limit;
     printf("bench/fast: run --fast, 1000 shots of 1 s at 10 kS/s, records and fsync included\n");
-    printf("  run --fast          %8.1f shots/s (%.2f s)\n", shots, t_run);
-    printf("  fsync-bound limit   %8.1f shots/s (the same files written, fsync'd, renamed)\n",
-           limit);
-    printf("  ratio %.2f of the limit (target >= 0.80)\n", shots / limit);
+    double sum = 0;
+    for (int i = 0; i < LIMITS; i++) {
+        double mean = (t_run[i] + t_run[i + 1]) / 2, ratio = t_limit[i] / mean;
+        printf("  run --fast          %8.1f shots/s (%.2f s and %.2f s either side)\n",
+               1000 / mean, t_run[i], t_run[i + 1]);
+        printf("  fsync-bound limit   %8.1f shots/s (the same files written, fsync'd, renamed)"
+               "  ratio %.2f\n", 1000 / t_limit[i], ratio);
+        sum += ratio;
+    }
+    printf("  ratio %.2f of the limit (target >= 0.80)\n", sum / LIMITS);
     return 0;
 }

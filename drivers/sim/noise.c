@@ -258,27 +258,28 @@ static void sample_trace(sim_env *e, const sim_scene *sc, const sim_signal *sig,
     if (a->nsamples) e->drift_time = a->start + (double)(a->nsamples - 1) * dt;
 }
 
-/* Mains on top of the trace: each harmonic by rotation, exact at the start
- * of every SYNC samples; the harmonics turn side by side (independent
- * chains of arithmetic, so they overlap in the processor). */
-static void add_mains(const sim_env *e, const plan_rig *rig, const drv_acquisition *a,
+/* n samples of mains from time t0 added into field: each harmonic by
+ * rotation, exact at the start of every SYNC samples; the harmonics turn
+ * side by side (independent chains of arithmetic, so they overlap in the
+ * processor). */
+static void mains_run(const sim_env *e, const plan_rig *rig, double t0, double rate, size_t n,
                       double *field) {
     double fm = rig->environment.mains, bm = rig->environment.mains_field;
     double c[SIM_MAX_HARMONICS], s[SIM_MAX_HARMONICS], cr[SIM_MAX_HARMONICS],
         sr[SIM_MAX_HARMONICS], amplitude[SIM_MAX_HARMONICS];
     int nh = e->harmonics;
     for (int h = 0; h < nh; h++) {
-        cr[h] = cos(2 * M_PI * (h + 1) * fm / a->rate);
-        sr[h] = sin(2 * M_PI * (h + 1) * fm / a->rate);
+        cr[h] = cos(2 * M_PI * (h + 1) * fm / rate);
+        sr[h] = sin(2 * M_PI * (h + 1) * fm / rate);
         amplitude[h] = bm / (h + 1);
     }
-    for (size_t k0 = 0; nh > 0 && k0 < a->nsamples; k0 += SYNC) {
-        double t = a->start + (double)k0 / a->rate;
+    for (size_t k0 = 0; nh > 0 && k0 < n; k0 += SYNC) {
+        double t = t0 + (double)k0 / rate;
         for (int h = 0; h < nh; h++) {
             c[h] = cos(2 * M_PI * (h + 1) * fm * t + e->mains_phase[h]);
             s[h] = sin(2 * M_PI * (h + 1) * fm * t + e->mains_phase[h]);
         }
-        size_t end = a->nsamples - k0 < SYNC ? a->nsamples : k0 + SYNC;
+        size_t end = n - k0 < SYNC ? n : k0 + SYNC;
         for (size_t k = k0; k < end; k++)
             for (int h = 0; h < nh; h++) {
                 field[k] += amplitude[h] * c[h];
@@ -286,6 +287,28 @@ static void add_mains(const sim_env *e, const plan_rig *rig, const drv_acquisiti
                 s[h] = s[h] * cr[h] + c[h] * sr[h];
                 c[h] = ch;
             }
+    }
+}
+
+/* Mains on top of the trace. When a mains period is a whole number of
+ * samples (10 kS/s at 50 Hz: 200) the mains repeat exactly from one period
+ * to the next: the first period is worked out and added again for the rest,
+ * a fifth of the work at five harmonics. */
+#define MAINS_PERIOD_MAX 2048
+static void add_mains(const sim_env *e, const plan_rig *rig, const drv_acquisition *a,
+                      double *field) {
+    if (e->harmonics <= 0) return;
+    double per = a->rate / rig->environment.mains;
+    size_t p = per >= 1 && per <= MAINS_PERIOD_MAX ? (size_t)llround(per) : 0;
+    if (p == 0 || fabs(per - (double)p) > 1e-9 * per || a->nsamples < 4 * p) {
+        mains_run(e, rig, a->start, a->rate, a->nsamples, field);
+        return;
+    }
+    double period[MAINS_PERIOD_MAX] = {0};
+    mains_run(e, rig, a->start, a->rate, p, period);
+    for (size_t k = 0, j = 0; k < a->nsamples; k++) {
+        field[k] += period[j];
+        if (++j == p) j = 0;
     }
 }
 

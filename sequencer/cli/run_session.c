@@ -13,6 +13,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <sys/wait.h>
+#include <time.h>
 #include <unistd.h>
 
 int run_open(run_session *r) {
@@ -152,8 +153,17 @@ static int on_record(void *ctx, sched_shot_result *res) {
     if (!res->record) return -1;
     int q = store_submit(r->st, res->record, false, err, sizeof err);
     if (q == 1) {
-        fprintf(stderr, "%sprecess run: waiting for the disk, holding the rig at rest\n",
-                r->progress_tty ? "\n" : "");
+        /* Said at most once a minute: under --fast the disk sets the pace
+         * of every shot, and one line a shot would bury the progress. */
+        struct timespec now;
+        clock_gettime(CLOCK_MONOTONIC, &now);
+        double t = (double)now.tv_sec + 1e-9 * (double)now.tv_nsec;
+        if (r->disk_waits++ == 0 || t - r->disk_notice >= 60) {
+            fprintf(stderr, "%sprecess run: waiting for the disk, holding the rig at rest%s\n",
+                    r->progress_tty ? "\n" : "",
+                    r->fast ? " (under --fast the disk sets the pace)" : "");
+            r->disk_notice = t;
+        }
         q = store_submit(r->st, res->record, true, err, sizeof err);
     }
     res->record = NULL;
