@@ -120,18 +120,23 @@ static int record_plan_values(store_record *r, const sched_shot *sh) {
     r->nparameters = p->nvars + p->nlets;
     r->parameter_names = arena_alloc(a, (r->nparameters + 1) * sizeof *r->parameter_names);
     r->parameters = arena_alloc(a, (r->nparameters + 1) * sizeof *r->parameters);
+    r->parameter_units = arena_alloc(a, (r->nparameters + 1) * sizeof *r->parameter_units);
     r->ncoils = p->rig.ncoils;
     r->coil_names = arena_alloc(a, (r->ncoils + 1) * sizeof *r->coil_names);
     r->currents = arena_alloc(a, (r->ncoils + 1) * sizeof *r->currents);
     r->nplaces = p->rig.nplaces;
     r->place_names = arena_alloc(a, (r->nplaces + 1) * sizeof *r->place_names);
     r->fields = arena_alloc(a, (r->nplaces + 1) * sizeof *r->fields);
-    if (!r->parameter_names || !r->parameters || !r->coil_names || !r->currents ||
-        !r->place_names || !r->fields)
+    if (!r->parameter_names || !r->parameters || !r->parameter_units || !r->coil_names ||
+        !r->currents || !r->place_names || !r->fields)
         return -1;
     for (size_t i = 0; i < r->nparameters; i++) {
         r->parameter_names[i] = i < p->nvars ? p->vars[i].name : p->lets[i - p->nvars].name;
         r->parameters[i] = sh->tl->values[i];
+        char unit[64];
+        units_dim_symbol(i < p->nvars ? p->vars[i].dim : p->lets[i - p->nvars].value.dim, unit,
+                         sizeof unit);
+        if (!(r->parameter_units[i] = arena_strdup(a, unit[0] ? unit : "1"))) return -1;
     }
     for (size_t i = 0; i < r->ncoils; i++) {
         r->coil_names[i] = p->rig.coils[i].name;

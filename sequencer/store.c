@@ -391,9 +391,10 @@ static hid_t group_new(h5w *w, hid_t parent, const char *name) {
     return g;
 }
 
-/* /GROUP/NAME: scalar float64 datasets, each with its units. */
+/* /GROUP/NAME: scalar float64 datasets, each with its units: each[i], or
+ * units for all when each is NULL. */
 static int write_scalars(h5w *w, hid_t f, const char *group, size_t n, const char **names,
-                         const double *values, const char *units) {
+                         const double *values, const char *units, const char *const *each) {
     hid_t g = group_new(w, f, group), space = H5Screate(H5S_SCALAR);
     int rc = g < 0 || space < 0 ? -1 : 0;
     for (size_t i = 0; i < n && rc == 0; i++) {
@@ -402,7 +403,7 @@ static int write_scalars(h5w *w, hid_t f, const char *group, size_t n, const cha
         if (d < 0 || H5Dwrite(d, H5T_NATIVE_DOUBLE, H5S_ALL, H5S_ALL, H5P_DEFAULT,
                               &values[i]) < 0)
             rc = h5_fail(w, names[i]);
-        if (rc == 0) rc = attr_str(w, d, "units", units);
+        if (rc == 0) rc = attr_str(w, d, "units", each && each[i] ? each[i] : units);
         if (d >= 0) H5Dclose(d);
     }
     if (space >= 0) H5Sclose(space);
@@ -604,9 +605,11 @@ static int write_contents(h5w *w, hid_t f, const store_record *r, bool failed) {
     int rc = write_root(w, f, r, failed);
     if (rc == 0)
         rc = write_scalars(w, f, "parameters", r->nparameters, r->parameter_names,
-                           r->parameters, "SI");
-    if (rc == 0) rc = write_scalars(w, f, "currents", r->ncoils, r->coil_names, r->currents, "A");
-    if (rc == 0) rc = write_scalars(w, f, "fields", r->nplaces, r->place_names, r->fields, "T");
+                           r->parameters, "1", r->parameter_units);
+    if (rc == 0)
+        rc = write_scalars(w, f, "currents", r->ncoils, r->coil_names, r->currents, "A", NULL);
+    if (rc == 0)
+        rc = write_scalars(w, f, "fields", r->nplaces, r->place_names, r->fields, "T", NULL);
     if (rc == 0) rc = write_pulses(w, f, r);
     if (rc == 0) rc = write_events(w, f, r);
     if (rc == 0) rc = write_acquisitions(w, f, r);

@@ -56,6 +56,7 @@ typedef struct {
     size_t nparameters, ncoils, nplaces, npulses, nevents, nacquisitions;
     const char **parameter_names;
     double *parameters;
+    const char **parameter_units;   /* each one's SI unit ("T", "s", "1"); NULL: all "1" */
     const char **coil_names;
     double *currents;           /* A, during the first acquisition */
     const char **place_names;

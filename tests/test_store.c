@@ -237,6 +237,7 @@ static store_record *make_record(uint32_t shot, uint32_t attempt, bool failed, s
     r->shot = shot, r->attempt = attempt, r->point = (shot + 1) / 2, r->average = 1 + (shot + 1) % 2;
     r->nparameters = 3;
     r->parameter_names = names(a, 3, "amplitude", "frequency", "ref_amplitude");
+    r->parameter_units = names(a, 3, "T", "Hz", "T");
     r->parameters = arena_alloc(a, 3 * sizeof(double));
     r->parameters[0] = 1e-12 * (1 + shot);
     r->parameters[1] = 40.0 + shot;

@@ -117,6 +117,10 @@ def check_record(path, ps, run_id):
             fail("%s: no attribute %s" % (path, k))
     if abs(f["parameters/b_detect"][()] - ps["parameters"]["b_detect"]) > 1e-18:
         fail("parameter b_detect")
+    # a field swept in uT is kept in its SI unit, the tesla
+    if f["parameters/b_detect"].attrs["units"] != "T":
+        fail("%s: /parameters/b_detect units %r, not 'T'" % (path,
+                                                             f["parameters/b_detect"].attrs["units"]))
     for coil, i in ps["currents"].items():
         if abs(f["currents/" + coil][()] - i) > 1e-12 or f["currents/" + coil].attrs["units"] != "A":
             fail("current of " + coil)
