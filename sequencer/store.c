@@ -629,7 +629,12 @@ static int build_image(h5w *w, const char *name, const store_record *r, bool fai
         return h5_fail(w, "string type");
     }
     hid_t fapl = memory_fapl(r);
-    hid_t f = fapl < 0 ? -1 : H5Fcreate(name, H5F_ACC_TRUNC, H5P_DEFAULT, fapl);
+    /* HDF5 first tries to open the name as an existing file, even in memory:
+     * under /dev/null no file can be, so a record of that name in the
+     * current folder is never read. */
+    char where[128];
+    snprintf(where, sizeof where, "/dev/null/%s", name);
+    hid_t f = fapl < 0 ? -1 : H5Fcreate(where, H5F_ACC_TRUNC, H5P_DEFAULT, fapl);
     int rc = f < 0 ? h5_fail(w, "create") : write_contents(w, f, r, failed);
     if (rc == 0 && H5Fflush(f, H5F_SCOPE_GLOBAL) < 0) rc = h5_fail(w, "flush");
     ssize_t size = rc == 0 ? H5Fget_file_image(f, NULL, 0) : -1;
