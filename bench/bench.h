@@ -14,6 +14,13 @@ static inline double bench_now(void) {
     return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
 }
 
+/* The command that runs dir/plan.yaml under --fast into dir/out, quietly. */
+static inline void bench_run_cmd(const char *precess, const char *dir, const char *out, char *cmd,
+                                 size_t n) {
+    snprintf(cmd, n, "%s run %s/plan.yaml --fast --out %s/%s >/dev/null 2>&1", precess, dir,
+             dir, out);
+}
+
 /* A temporary folder (dir: a mkdtemp template) holding plan.yaml, the plan
  * text plan_fmt with this folder's path for its one %s (the rig's path is
  * relative to the tree), and the command that runs it under --fast into
@@ -27,8 +34,7 @@ static inline int bench_plan(char *dir, const char *plan_fmt, const char *preces
     if (!f) return -1;
     fprintf(f, plan_fmt, cwd);
     fclose(f);
-    snprintf(cmd, n, "%s run %s/plan.yaml --fast --out %s/run >/dev/null 2>&1", precess, dir,
-             dir);
+    bench_run_cmd(precess, dir, "run", cmd, n);
     return 0;
 }
 

@@ -63,8 +63,7 @@ static int rewrite(const char *run, const char *out, size_t *n) {
 /* One `run --fast` of the plan into dir/NAME; its seconds, or -1. */
 static double timed_run(const char *precess, const char *dir, const char *name) {
     char cmd[8192];
-    snprintf(cmd, sizeof cmd, "%s run %s/plan.yaml --fast --out %s/%s >/dev/null 2>&1", precess,
-             dir, dir, name);
+    bench_run_cmd(precess, dir, name, cmd, sizeof cmd);
     double t0 = bench_now();
     int rc = system(cmd);
     return rc == 0 ? bench_now() - t0 : -1;
@@ -82,7 +81,7 @@ int main(int argc, char **argv) {
     char dir[] = "/tmp/precess-bench-fast-XXXXXX", cmd[8192], path[4096], run[4096], name[32];
     if (bench_plan(dir, PLAN, precess, cmd, sizeof cmd) != 0) return 1;
     double t_run[LIMITS + 1], t_limit[LIMITS];
-    size_t n[LIMITS] = {0};
+    size_t n = 0;
     int bad = 0;
     snprintf(run, sizeof run, "%s/run0", dir);
     for (int i = 0; i <= LIMITS && !bad; i++) {
@@ -92,7 +91,7 @@ int main(int argc, char **argv) {
         if (i == LIMITS || bad) break;
         snprintf(path, sizeof path, "%s/again%d", dir, i);
         double t0 = bench_now();
-        bad = rewrite(run, path, &n[i]) != 0 || n[i] != 1000;
+        bad = rewrite(run, path, &n) != 0 || n != 1000;
         t_limit[i] = bench_now() - t0;
     }
     snprintf(cmd, sizeof cmd, "rm -rf %s", dir);

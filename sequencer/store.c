@@ -687,6 +687,13 @@ static int journal_shot(store *s, const store_record *r, bool failed, const char
     return journal_append(s, "shot", o, err, errlen);
 }
 
+/* tmp in dirfd removed, errno as it was (it says why tmp is not kept). */
+static void drop_tmp(int dirfd, const char *tmp) {
+    int saved = errno;
+    unlinkat(dirfd, tmp, 0);
+    errno = saved;
+}
+
 /* Placing a file, first half: the image written into tmp in dirfd and its
  * writeback started, so that the fsyncs of a batch overlap on the disk.
  * Returns the open descriptor, or -1 with *what saying what failed (errno
@@ -699,10 +706,12 @@ static int start_file(int dirfd, const char *tmp, const void *image, size_t len,
         sync_file_range(fd, 0, 0, SYNC_FILE_RANGE_WRITE);   /* a hint: fsync makes sure */
         return fd;
     }
-    int saved = errno;
-    if (fd >= 0) close(fd);
-    unlinkat(dirfd, tmp, 0);
-    errno = saved;
+    if (fd >= 0) {
+        int saved = errno;
+        close(fd);
+        errno = saved;
+    }
+    drop_tmp(dirfd, tmp);
     return -1;
 }
 
@@ -712,11 +721,7 @@ static const char *finish_file(int dirfd, int fd, const char *tmp, const char *n
     const char *what = fsync(fd) != 0 ? "fsync" : NULL;
     if (close(fd) != 0 && !what) what = "close";
     if (!what && renameat(dirfd, tmp, dirfd, name) != 0) what = "rename";
-    if (what) {
-        int saved = errno;
-        unlinkat(dirfd, tmp, 0);
-        errno = saved;
-    }
+    if (what) drop_tmp(dirfd, tmp);
     return what;
 }
 
@@ -746,6 +751,11 @@ static void build_record(h5w *w, built_record *b) {
  * journal lines in order, each fsync'd. A failure stops there: the images
  * placed before it are still made durable and journalled. Returns how many
  * were journalled; fewer than n means err says why the next one was not. */
+/* The folder a built record goes to. */
+static int folder_of(const store *s, const built_record *b) {
+    return b->failed ? s->failedfd : s->recordsfd;
+}
+
 static size_t commit_batch(store *s, built_record *const *b, size_t n, char *err,
                            size_t errlen) {
     int fd[STAGE_DEPTH];
@@ -753,22 +763,20 @@ static size_t commit_batch(store *s, built_record *const *b, size_t n, char *err
     const char *what = NULL;    /* what failed, of the record where the batch stops */
     for (; started < n && b[started]->rc == 0; started++) {
         const built_record *r = b[started];
-        fd[started] = start_file(r->failed ? s->failedfd : s->recordsfd, r->tmp, r->image,
-                                 r->len, &what);
+        fd[started] = start_file(folder_of(s, r), r->tmp, r->image, r->len, &what);
         if (fd[started] < 0) break;
     }
     int saved = errno;
     bool sync_records = false, sync_failed = false;
     for (; placed < started; placed++) {
         const built_record *r = b[placed];
-        const char *failed = finish_file(r->failed ? s->failedfd : s->recordsfd, fd[placed],
-                                         r->tmp, r->name);
+        const char *failed = finish_file(folder_of(s, r), fd[placed], r->tmp, r->name);
         if (failed) {
             what = failed;
             saved = errno;
             for (size_t i = placed + 1; i < started; i++) {     /* started, never placed */
                 close(fd[i]);
-                unlinkat(b[i]->failed ? s->failedfd : s->recordsfd, b[i]->tmp, 0);
+                drop_tmp(folder_of(s, b[i]), b[i]->tmp);
             }
             break;
         }

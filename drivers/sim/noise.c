@@ -304,7 +304,8 @@ static void add_mains(const sim_env *e, const plan_rig *rig, const drv_acquisiti
         mains_run(e, rig, a->start, a->rate, a->nsamples, field);
         return;
     }
-    double period[MAINS_PERIOD_MAX] = {0};
+    double period[MAINS_PERIOD_MAX];
+    memset(period, 0, p * sizeof *period);
     mains_run(e, rig, a->start, a->rate, p, period);
     for (size_t k = 0, j = 0; k < a->nsamples; k++) {
         field[k] += period[j];

@@ -36,8 +36,7 @@ typedef struct {
     int supervisor_pipe;
     an_work *quick;             /* the progress line's spectra */
     size_t lost;                /* records the store dropped after failing */
-    double disk_notice;         /* monotonic s of the last "waiting for the disk" */
-    size_t disk_waits;          /* shots that waited for room in the record queue */
+    double disk_notice;         /* monotonic s of the last "waiting for the disk"; 0: none */
 } run_session;
 
 /* Finds and opens the driver (no folder yet). Returns a CLI exit status. */

@@ -158,7 +158,7 @@ static int on_record(void *ctx, sched_shot_result *res) {
         struct timespec now;
         clock_gettime(CLOCK_MONOTONIC, &now);
         double t = (double)now.tv_sec + 1e-9 * (double)now.tv_nsec;
-        if (r->disk_waits++ == 0 || t - r->disk_notice >= 60) {
+        if (r->disk_notice == 0 || t - r->disk_notice >= 60) {
             fprintf(stderr, "%sprecess run: waiting for the disk, holding the rig at rest%s\n",
                     r->progress_tty ? "\n" : "",
                     r->fast ? " (under --fast the disk sets the pace)" : "");
