@@ -708,6 +708,30 @@ static void test_samples_fall_on_the_quantization_step(void **state) {
     assert_near(smallest, step, step * 1e-4);
 }
 
+/* source: uniform quantization, each input to the nearest code: the error
+ * lies within half a step and, for inputs spread evenly over many steps,
+ * its rms is step / sqrt(12) (Bennett, "Spectra of quantized signals",
+ * Bell Syst. Tech. J. 27, 446 (1948); value from memory). */
+static void test_adc_rounds_to_the_nearest_code(void **state) {
+    (void)state;
+    rig_input in = {.range_lo = -10, .range_hi = 10, .field_per_volt = FIELD_PER_VOLT, .bits = 16};
+    double step = VOLTS_PER_COUNT * FIELD_PER_VOLT, sum2 = 0, worst = 0;
+    size_t n = 200000;
+    for (size_t k = 0; k < n; k++) {
+        double field = -3e-9 + 6e-9 * ((double)k + 0.5) / (double)n, e = sim_adc(&in, field) - field;
+        worst = fmax(worst, fabs(e));
+        sum2 += e * e;
+    }
+    assert_true(worst <= 0.5 * step * (1 + 1e-9));
+    assert_near(sqrt(sum2 / (double)n), step / sqrt(12), 0.01 * step / sqrt(12));
+    /* 0.4 of a step above a code goes down to it, 0.6 up to the next */
+    double code = -10 + 1000 * VOLTS_PER_COUNT;
+    assert_near(sim_adc(&in, (code + 0.4 * VOLTS_PER_COUNT) * FIELD_PER_VOLT), code * FIELD_PER_VOLT,
+                1e-6 * step);
+    assert_near(sim_adc(&in, (code + 0.6 * VOLTS_PER_COUNT) * FIELD_PER_VOLT),
+                (code + VOLTS_PER_COUNT) * FIELD_PER_VOLT, 1e-6 * step);
+}
+
 static void test_adc_clips_at_the_input_range(void **state) {
     fixture *f = *state;
     compile_magnet(f, "3e-8");
@@ -1020,6 +1044,7 @@ int main(void) {
         T(test_drift_is_a_random_walk_of_the_given_rms),
         T(test_every_shot_of_the_buildup_example_gives_its_record),
         T(test_samples_fall_on_the_quantization_step),
+        T(test_adc_rounds_to_the_nearest_code),
         T(test_adc_clips_at_the_input_range),
         T(test_same_seed_same_samples_other_attempt_other_noise),
         T(test_read_error_fails_the_named_shots_first_attempt),
