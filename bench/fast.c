@@ -69,13 +69,14 @@ static double timed_run(const char *precess, const char *dir, const char *name) 
     return rc == 0 ? bench_now() - t0 : -1;
 }
 
-/* Runs and limits take turns (run, limit, run, limit, run), and each limit
- * is set against the mean of the runs either side of it: the file system's
- * own cost of making a file drifts (ext4 looks past the inodes freed in the
- * last half minute, so a bench right after removing thousands of files pays
- * more at first, and a shared disk has its moods), and both sides get the
- * same. The ratio printed is the mean of the two. */
-#define LIMITS 2
+/* Runs and limits take turns (run, limit, run, limit, run, limit, run), and
+ * each limit is set against the mean of the runs either side of it: the file
+ * system's own cost of making a file drifts (ext4 looks past the inodes freed
+ * in the last half minute, so a bench right after removing thousands of
+ * files pays more at first, and a shared disk has its moods, its speed
+ * doubling or halving from one second to the next), and both sides get the
+ * same. The ratio printed is the mean of the three. */
+#define LIMITS 3
 int main(int argc, char **argv) {
     const char *precess = argc > 1 ? argv[1] : "build/precess";
     char dir[] = "/tmp/precess-bench-fast-XXXXXX", cmd[8192], path[4096], run[4096], name[32];

@@ -18,6 +18,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/resource.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -26,6 +27,9 @@
 /* libdeflate's level 1: the zlib stream HDF5's deflate filter reads, made
  * in about a third of zlib's time at level 1 and a tenth smaller. */
 #define DEFLATE_LEVEL 1
+
+/* How far the record builder sits below the run's own priority (nice). */
+#define BUILD_NICE 10
 
 /* Debian's HDF5 is the serial build, unsafe from two threads at once: the
  * writers of two stores open together take turns through this lock. The
@@ -811,10 +815,26 @@ static void built_free(built_record *b) {
 
 /* ---- the writer thread and its queue ------------------------------------- */
 
+/* The calling thread's nice value raised by by (Linux keeps one per thread);
+ * where the system refuses, the thread stays as it was. */
+static void lower_priority(int by) {
+    errno = 0;
+    int now = getpriority(PRIO_PROCESS, (id_t)gettid());
+    if (now == -1 && errno != 0) return;
+    (void)setpriority(PRIO_PROCESS, (id_t)gettid(), now + by > 19 ? 19 : now + by);
+}
+
+void store_yield_to_writer(void) { lower_priority(BUILD_NICE); }
+
 /* The builder: records from the queue to file images on the stage. A
  * record it cannot take memory for fails the writer like a disk error. */
 static void *writer_main(void *arg) {
     store *s = arg;
+    /* Building is CPU work nothing waits on at once: niced, it leaves a core
+     * to the scheduler's thread and to the committer the moment either needs
+     * one (the committer to start the next write as soon as the disk answers). */
+    pthread_setname_np(pthread_self(), "precess-build");
+    lower_priority(BUILD_NICE);
     h5w w = {.deflate = libdeflate_alloc_compressor(DEFLATE_LEVEL)};
     pthread_mutex_lock(&hdf5_lock);
     H5Eset_auto2(H5E_DEFAULT, NULL, NULL);
@@ -867,6 +887,7 @@ static void *writer_main(void *arg) {
  * serves several records. */
 static void *committer_main(void *arg) {
     store *s = arg;
+    pthread_setname_np(pthread_self(), "precess-commit");
     char err[sizeof s->error];
     built_record *batch[STAGE_DEPTH];
     pthread_mutex_lock(&s->lock);

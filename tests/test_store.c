@@ -554,6 +554,74 @@ static void test_run_of_three_ok_and_one_failed_through_a_queue_of_two(void **st
     check_run(dir);     /* left in place for tests/ref/records.py */
 }
 
+/* The nice value of this process's thread named name (-100: none such),
+ * from /proc/self/task/TID/stat (its 19th field, proc(5)). */
+static int nice_of_thread(const char *name) {
+    DIR *d = opendir("/proc/self/task");
+    assert_non_null(d);
+    struct dirent *e;
+    int nice = -100;
+    while ((e = readdir(d)) && nice == -100) {
+        if (e->d_name[0] == '.') continue;
+        char path[300], comm[64] = "", stat[1024] = "";
+        snprintf(path, sizeof path, "/proc/self/task/%s/comm", e->d_name);
+        FILE *f = fopen(path, "r");
+        if (!f) continue;
+        if (!fgets(comm, sizeof comm, f)) comm[0] = '\0';
+        fclose(f);
+        comm[strcspn(comm, "\n")] = '\0';
+        if (strcmp(comm, name) != 0) continue;
+        snprintf(path, sizeof path, "/proc/self/task/%s/stat", e->d_name);
+        assert_non_null(f = fopen(path, "r"));
+        assert_non_null(fgets(stat, sizeof stat, f));
+        fclose(f);
+        const char *p = strrchr(stat, ')');      /* the name may hold spaces */
+        assert_non_null(p);
+        int field = 2;
+        for (p++; *p && field < 19; p++)
+            if (*p == ' ') field++;
+        nice = atoi(p);
+    }
+    closedir(d);
+    return nice;
+}
+
+static void *yield_and_read(void *arg) {
+    int *out = arg;
+    errno = 0;
+    out[0] = getpriority(PRIO_PROCESS, (id_t)gettid());
+    store_yield_to_writer();
+    out[1] = getpriority(PRIO_PROCESS, (id_t)gettid());
+    return NULL;
+}
+
+/* The builder runs 10 below the caller's priority, the committer at it; a
+ * thread that yields to the writer goes down to the builder's. */
+static void test_builder_yields_the_cpu_and_committer_keeps_it(void **state) {
+    (void)state;
+    char dir[128], err[512] = "";
+    scratch_run(dir, "nice");
+    store *s = create_run(dir);
+    int mine = getpriority(PRIO_PROCESS, (id_t)gettid());
+    assert_int_equal(store_start(s, 1, err, sizeof err), 0);
+    int build = -100, commit = -100;
+    for (int i = 0; i < 200 && (build == -100 || commit == -100); i++) {
+        build = nice_of_thread("precess-build");    /* named by the threads themselves */
+        commit = nice_of_thread("precess-commit");
+        if (build == -100 || commit == -100) usleep(5000);
+    }
+    assert_int_equal(commit, mine);
+    assert_int_equal(build, mine + 10 > 19 ? 19 : mine + 10);
+    if (store_close(s, err, sizeof err) != 0) fail_msg("store_close: %s", err);
+    remove_scratch(dir);
+    int before_after[2];
+    pthread_t t;
+    assert_int_equal(pthread_create(&t, NULL, yield_and_read, before_after), 0);
+    pthread_join(t, NULL);
+    assert_int_equal(before_after[1], before_after[0] + 10 > 19 ? 19 : before_after[0] + 10);
+    assert_int_equal(getpriority(PRIO_PROCESS, (id_t)gettid()), mine);   /* only that thread */
+}
+
 /* A record with one thing wrong, submitted: refused (and freed by the
  * store, which ASan checks), with a message naming the fault. */
 static void check_refused(store *s, store_record *r, const char *message) {
@@ -723,6 +791,7 @@ int main(void) {
         cmocka_unit_test(test_run_of_three_ok_and_one_failed_through_a_queue_of_two),
         cmocka_unit_test(test_submit_refuses_bad_records_and_keeps_writing),
         cmocka_unit_test(test_two_runs_at_once_both_write_every_record),
+        cmocka_unit_test(test_builder_yields_the_cpu_and_committer_keeps_it),
         cmocka_unit_test_setup_teardown(test_full_disk_is_reported_and_not_journalled,
                                         mount_small_tmpfs, unmount_small_tmpfs),
         cmocka_unit_test_setup_teardown(test_file_size_limit_is_reported_and_not_journalled,
