@@ -63,7 +63,12 @@ typedef struct {
 
 /* Every function returns 0; -1 with a message in err (errlen bytes) when
  * this attempt failed (it may be retried); -2 with a message for a hardware
- * fault (the device is gone): the run then ends in the safe state, exit 4. */
+ * fault (the device is gone): the run then ends in the safe state, exit 4;
+ * DRV_LIMIT with a message when a command would go past a limit of the rig
+ * (current, output voltage, slew: the driver's own check, behind the
+ * compiler's): nothing of it was sent, and the run stops in the safe state
+ * with the stop reason `limit`, exit 1, as no retry would do otherwise. */
+#define DRV_LIMIT (-3)
 typedef struct {
     const char *name;
     int (*open)(const drv_context *ctx, drv **out, char *err, size_t errlen);

@@ -73,7 +73,7 @@ static int run_attempt(sched *s, uint32_t k, uint32_t attempt, double *next, sch
     res.record = sched_make_record(&sh);
     int out = rc == 0 ? 0 : 1;
     if (sh.fault) {
-        o->status = SCHED_FAULT;
+        o->status = sh.limit ? SCHED_LIMIT : SCHED_FAULT;
         snprintf(o->error, sizeof o->error, "%s", sh.error);
         out = -1;
     } else if (*a->abort) {

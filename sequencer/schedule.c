@@ -52,9 +52,11 @@ int sched_wait(sched_shot *sh, double t) {
 
 /* ---- one attempt ------------------------------------------------------------ */
 
-/* A driver's answer: -2 is a hardware fault (the run ends), -1 a failure. */
+/* A driver's answer: -2 is a hardware fault and DRV_LIMIT a limit the
+ * driver refused (either ends the run), -1 a failure. */
 static int driver_rc(sched_shot *sh, int rc) {
     if (rc < -1) sh->fault = 1;
+    if (rc == DRV_LIMIT) sh->limit = 1;
     return rc ? -1 : 0;
 }
 

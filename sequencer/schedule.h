@@ -34,7 +34,8 @@ void clock_tighten_slack(void);
 
 /* ---- running ---------------------------------------------------------------- */
 
-typedef enum { SCHED_OK, SCHED_FAILED, SCHED_INTERRUPTED, SCHED_FAULT } sched_status;
+/* SCHED_LIMIT: the driver refused a command past a limit of the rig. */
+typedef enum { SCHED_OK, SCHED_FAILED, SCHED_INTERRUPTED, SCHED_FAULT, SCHED_LIMIT } sched_status;
 
 /* What one attempt of a shot gave. */
 typedef struct {

@@ -44,7 +44,7 @@ typedef struct {
     bool acq_active, acq_done;
     int fd;
     ev_io io;
-    int failed, fault;
+    int failed, fault, limit;   /* limit: the fault was a limit the driver refused */
     char error[256];
     char started_utc[40];
 } sched_shot;

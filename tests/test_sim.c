@@ -882,12 +882,12 @@ static void test_limits_are_checked_again_in_the_driver(void **state) {
     compile_text(f, PLAN_CURIE);
     drv *d = open_sim(f, 0, 1, true, NULL);
     drv_segment over = {PREPOL, 1.0, 1.0, 0, 9, NULL, 0};
-    assert_int_equal(f->ops->load_segment(d, &over, f->err, ERRLEN), -1);
+    assert_int_equal(f->ops->load_segment(d, &over, f->err, ERRLEN), DRV_LIMIT);
     assert_non_null(strstr(f->err, "max_current"));
     drv_segment fast = {MAIN, 1.0, 0.01, 0, 0.2, NULL, 0};    /* 20 A/s > 4 A/s */
-    assert_int_equal(f->ops->load_segment(d, &fast, f->err, ERRLEN), -1);
+    assert_int_equal(f->ops->load_segment(d, &fast, f->err, ERRLEN), DRV_LIMIT);
     assert_non_null(strstr(f->err, "max_slew"));
-    assert_int_equal(f->ops->set_current(d, BIAS, 0.05, 1.0, f->err, ERRLEN), -1);
+    assert_int_equal(f->ops->set_current(d, BIAS, 0.05, 1.0, f->err, ERRLEN), DRV_LIMIT);
     int line = rig_find_line(&f->p->rig, "interlock", 9);
     assert_int_equal(f->ops->set_line(d, line, true, 1.0, f->err, ERRLEN), -1);
     assert_non_null(strstr(f->err, "input"));

@@ -225,12 +225,12 @@ static int check_coil(const drv *d, int coil, char *err, size_t errlen) {
 static int check_current(const drv *d, int coil, double amps, char *err, size_t errlen) {
     const rig_coil *c = &d->rig->coils[coil];
     if (!isfinite(amps))
-        return fail(err, errlen, -1, "coil %s: the current asked is not a number", c->name);
+        return fail(err, errlen, DRV_LIMIT, "coil %s: the current asked is not a number", c->name);
     if (c->max_current > 0 && fabs(amps) > c->max_current * (1 + TOLERANCE))
-        return fail(err, errlen, -1, "coil %s: %.6g A exceeds its max_current of %.6g A; "
+        return fail(err, errlen, DRV_LIMIT, "coil %s: %.6g A exceeds its max_current of %.6g A; "
                     "nothing was sent", c->name, amps, c->max_current);
     if (c->amps_per_volt != 0 && fabs(amps / c->amps_per_volt) > d->rig->ao_range * (1 + TOLERANCE))
-        return fail(err, errlen, -1, "coil %s: %.6g A needs %.6g V, outside the analog "
+        return fail(err, errlen, DRV_LIMIT, "coil %s: %.6g A needs %.6g V, outside the analog "
                     "outputs' +-%.6g V; nothing was sent", c->name, amps,
                     amps / c->amps_per_volt, d->rig->ao_range);
     return 0;
@@ -241,7 +241,7 @@ static int check_slew(const drv *d, int coil, double change, double time, char *
     const rig_coil *c = &d->rig->coils[coil];
     if (!(time > 0) || !(c->max_slew > 0)) return 0;
     if (fabs(change) / time > c->max_slew * (1 + 1e-6))
-        return fail(err, errlen, -1, "coil %s: %.6g A/s exceeds its max_slew of %.6g A/s; "
+        return fail(err, errlen, DRV_LIMIT, "coil %s: %.6g A/s exceeds its max_slew of %.6g A/s; "
                     "nothing was sent", c->name, fabs(change) / time, c->max_slew);
     return 0;
 }
@@ -251,13 +251,14 @@ static int check_segment(const drv *d, const drv_segment *s, char *err, size_t e
     if (!isfinite(s->start) || !(s->length >= 0))
         return fail(err, errlen, -1, "coil %s: a segment needs a start and a length of at "
                     "least 0", d->rig->coils[s->coil].name);
-    if (!s->pulse)
-        return check_current(d, s->coil, s->from, err, errlen) ||
-                       check_current(d, s->coil, s->to, err, errlen) ||
-                       check_slew(d, s->coil, s->to - s->from, s->length, err, errlen)
-                   ? -1
-                   : 0;
-    if (check_current(d, s->coil, s->peak, err, errlen)) return -1;
+    int rc;
+    if (!s->pulse) {
+        if ((rc = check_current(d, s->coil, s->from, err, errlen)) ||
+            (rc = check_current(d, s->coil, s->to, err, errlen)))
+            return rc;
+        return check_slew(d, s->coil, s->to - s->from, s->length, err, errlen);
+    }
+    if ((rc = check_current(d, s->coil, s->peak, err, errlen))) return rc;
     return s->pulse->resonant ? 0 : check_slew(d, s->coil, s->peak, s->pulse->rise, err, errlen);
 }
 
@@ -358,7 +359,9 @@ static int sim_begin_shot(drv *d, uint32_t shot, uint32_t attempt, const compile
 
 static int sim_set_current(drv *d, int coil, double amps, double at, char *err, size_t errlen) {
     CHECK_GONE(d, err, errlen);
-    if (check_coil(d, coil, err, errlen) || check_current(d, coil, amps, err, errlen)) return -1;
+    if (check_coil(d, coil, err, errlen)) return -1;
+    int rc = check_current(d, coil, amps, err, errlen);
+    if (rc) return rc;
     sim_history *h = &d->coils[coil];
     sim_segment s = {.kind = SIM_RAMP, .start = at, .from = sim_history_current(h, at),
                      .to = amps, .until = INFINITY};
@@ -369,7 +372,8 @@ static int sim_set_current(drv *d, int coil, double amps, double at, char *err, 
 
 static int sim_load_segment(drv *d, const drv_segment *s, char *err, size_t errlen) {
     CHECK_GONE(d, err, errlen);
-    if (check_segment(d, s, err, errlen)) return -1;
+    int rc = check_segment(d, s, err, errlen);
+    if (rc) return rc;
     sim_segment g = {.kind = s->pulse ? SIM_PULSE : SIM_RAMP, .start = s->start,
                      .length = s->length, .from = s->from, .to = s->to, .peak = s->peak,
                      .until = INFINITY, .given = s->pulse};

@@ -211,6 +211,7 @@ static void journal_start(run_session *r) {
 static const char *reason_of(sched_status s) {
     return s == SCHED_OK || s == SCHED_FAILED ? "done"
            : s == SCHED_INTERRUPTED          ? "interrupted"
+           : s == SCHED_LIMIT                ? "limit"
                                              : "fault";
 }
 
@@ -222,7 +223,7 @@ static void journal_stop(run_session *r, const sched_summary *sum, bool recordin
                                sum->max * 1e6);
     json_t *o = json_pack("{s:s, s:o}", "reason",
                           recording_failed ? "fault" : reason_of(sum->status), "timing", timing);
-    if (sum->status == SCHED_FAULT || sum->status == SCHED_FAILED) {
+    if (sum->status == SCHED_FAULT || sum->status == SCHED_FAILED || sum->status == SCHED_LIMIT) {
         if (sum->error[0]) json_object_set_new(o, "error", json_string(sum->error));
     }
     char err[256];
