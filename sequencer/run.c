@@ -44,12 +44,15 @@ static void free_shot(sched_shot *sh) {
     free(sh->soft);
 }
 
-/* Setup or teardown: no record, no retries. Returns 0 or -1 with err. */
-static int run_part(sched *s, const compile_timeline *t, double *next, char *err, size_t n) {
+/* Setup or teardown: no record, no retries. Returns 0 or -1 with err and
+ * *limit set when what failed was a limit the driver refused. */
+static int run_part(sched *s, const compile_timeline *t, double *next, bool *limit, char *err,
+                    size_t n) {
     if (t->nevents == 0 && t->duration == 0) return 0;
     sched_shot sh = {.s = s, .tl = t, .t0 = *next};
     int rc = sched_attempt(&sh);
     if (rc) snprintf(err, n, "%s", sh.error[0] ? sh.error : "interrupted");
+    if (rc && sh.limit) *limit = true;
     *next = sh.t0 + t->duration;
     free_shot(&sh);
     return rc;
@@ -143,14 +146,15 @@ sched_status sched_run(const sched_run_args *a, sched_summary *o) {
     clock_tighten_slack();
     double next = clock_now(s.clock) + (clock_is_virtual(s.clock) ? 0 : 0.010);
     char err[256] = "";
+    bool limit = false;     /* what setup or teardown failed on was a limit */
     const drv_ops *ops = a->ops;
     if (ops->safe_state(a->driver, clock_now(s.clock), err, sizeof err) ||
-        run_part(&s, &a->plan->setup, &next, err, sizeof err)) {
-        o->status = *a->abort ? SCHED_INTERRUPTED : SCHED_FAULT;
+        run_part(&s, &a->plan->setup, &next, &limit, err, sizeof err)) {
+        o->status = *a->abort ? SCHED_INTERRUPTED : limit ? SCHED_LIMIT : SCHED_FAULT;
         snprintf(o->error, sizeof o->error, "setup: %.200s", err);
     } else if (run_shots(&s, &next, o) == 0) {
-        if (run_part(&s, &a->plan->teardown, &next, err, sizeof err)) {
-            o->status = *a->abort ? SCHED_INTERRUPTED : SCHED_FAULT;
+        if (run_part(&s, &a->plan->teardown, &next, &limit, err, sizeof err)) {
+            o->status = *a->abort ? SCHED_INTERRUPTED : limit ? SCHED_LIMIT : SCHED_FAULT;
             snprintf(o->error, sizeof o->error, "teardown: %.200s", err);
         } else if (o->shots_failed) {
             o->status = SCHED_FAILED;

@@ -815,8 +815,9 @@ static void built_free(built_record *b) {
 
 /* ---- the writer thread and its queue ------------------------------------- */
 
-/* The calling thread's nice value raised by by (Linux keeps one per thread);
- * where the system refuses, the thread stays as it was. */
+/* The calling thread's nice value raised by by (Linux keeps one per thread,
+ * set through its thread id: Linux only, like the timerfd and eventfd the
+ * run uses); where the system refuses, the thread stays as it was. */
 static void lower_priority(int by) {
     errno = 0;
     int now = getpriority(PRIO_PROCESS, (id_t)gettid());
@@ -833,8 +834,8 @@ static void *writer_main(void *arg) {
     /* Building is CPU work nothing waits on at once: niced, it leaves a core
      * to the scheduler's thread and to the committer the moment either needs
      * one (the committer to start the next write as soon as the disk answers). */
-    pthread_setname_np(pthread_self(), "precess-build");
     lower_priority(BUILD_NICE);
+    pthread_setname_np(pthread_self(), "precess-build");    /* named once it is niced */
     h5w w = {.deflate = libdeflate_alloc_compressor(DEFLATE_LEVEL)};
     pthread_mutex_lock(&hdf5_lock);
     H5Eset_auto2(H5E_DEFAULT, NULL, NULL);

@@ -22,19 +22,21 @@
 #include "store.h"
 
 #define BAD_SHOT 2u
+#define SETUP 0u                /* the shot the scheduler is at during setup */
 
 static const char PLAN[] =
     "version: 1\ntitle: limit test\nrig: %s/plans/rigs/sim-bench.yaml\n"
     "sample: {nuclei: [1H], model: {t1: 1 s, t2: 0.4 s, signal_per_field: 1e-9}}\n"
     "vary:\n  b: {from: 5 uT, to: 40 uT, steps: 4}\n"
     "retries: 2\n"
+    "setup:\n  - field: {sample: 10 uT, settle: 1 s}\n"
     "shot:\n"
     "  - field: {sample: b, sensor: tune}\n"
     "  - pulse: {coil: tip, angle: 90 deg}\n"
     "  - acquire: {for: 100 ms, rate: 10 kHz}\n";
 
 static const drv_ops *real;
-static uint32_t shot_now, attempts[8];
+static uint32_t shot_now, bad_shot, attempts[8];
 
 static int begin_shot(drv *d, uint32_t shot, uint32_t attempt, const compile_timeline *t,
                       double start, char *err, size_t errlen) {
@@ -43,10 +45,11 @@ static int begin_shot(drv *d, uint32_t shot, uint32_t attempt, const compile_tim
     return real->begin_shot(d, shot, attempt, t, start, err, errlen);
 }
 
-/* Shot BAD_SHOT's ramps ask for 100 times their current. */
+/* The ramps of shot bad_shot (SETUP: of the setup) ask for 100 times their
+ * current. */
 static int load_segment(drv *d, const drv_segment *s, char *err, size_t errlen) {
     drv_segment bad = *s;
-    if (shot_now == BAD_SHOT && !s->pulse && s->to != 0) bad.to = 100 * s->to;
+    if (shot_now == bad_shot && !s->pulse && s->to != 0) bad.to = 100 * s->to;
     return real->load_segment(d, &bad, err, errlen);
 }
 
@@ -57,8 +60,9 @@ static int on_record(void *ctx, sched_shot_result *r) {
     return 0;
 }
 
-static void test_a_refused_limit_stops_the_run_safe_without_retry(void **state) {
-    (void)state;
+/* Runs the plan with the ramps of shot bad made to ask too much; the
+ * summary in *sum, every coil checked at zero after it. */
+static sched_status run_with_bad(uint32_t bad, sched_summary *sum) {
     char cwd[2048], text[4096];
     assert_non_null(getcwd(cwd, sizeof cwd));
     snprintf(text, sizeof text, PLAN, cwd);
@@ -77,6 +81,9 @@ static void test_a_refused_limit_stops_the_run_safe_without_retry(void **state) 
     drv_ops limited = *real;
     limited.begin_shot = begin_shot;
     limited.load_segment = load_segment;
+    shot_now = 0;
+    bad_shot = bad;
+    memset(attempts, 0, sizeof attempts);
     drv_context ctx = {&p->rig, c, 7, true, NULL};
     drv *dv = NULL;
     char err[256];
@@ -85,12 +92,7 @@ static void test_a_refused_limit_stops_the_run_safe_without_retry(void **state) 
     volatile sig_atomic_t stop = 0, abort_now = 0;
     sched_run_args a = {c, &limited, dv, clock, "limit-test", "sim", "0", &stop, &abort_now,
                         on_record, NULL, NULL};
-    sched_summary sum;
-    assert_int_equal(sched_run(&a, &sum), SCHED_LIMIT);
-    assert_int_equal(sum.shots_ok, BAD_SHOT - 1);
-    assert_int_equal(attempts[BAD_SHOT], 1);         /* no retry: it would ask the same */
-    assert_int_equal(attempts[BAD_SHOT + 1], 0);     /* and nothing after it */
-    assert_non_null(strstr(sum.error, "max_current"));
+    sched_status st = sched_run(&a, sum);
     for (size_t k = 0; k < p->rig.ncoils; k++)
         assert_true(sim_current_at(dv, (int)k, clock_now(clock) + 1) == 0);
     real->close(dv);
@@ -99,11 +101,34 @@ static void test_a_refused_limit_stops_the_run_safe_without_retry(void **state) 
     scan_free(sc);
     plan_free(p);
     diag_free(&d);
+    return st;
+}
+
+static void test_a_refused_limit_stops_the_run_safe_without_retry(void **state) {
+    (void)state;
+    sched_summary sum;
+    assert_int_equal(run_with_bad(BAD_SHOT, &sum), SCHED_LIMIT);
+    assert_int_equal(sum.shots_ok, BAD_SHOT - 1);
+    assert_int_equal(attempts[BAD_SHOT], 1);         /* no retry: it would ask the same */
+    assert_int_equal(attempts[BAD_SHOT + 1], 0);     /* and nothing after it */
+    assert_non_null(strstr(sum.error, "max_current"));
+}
+
+/* In setup it is a limit too, not a hardware fault; no shot runs. */
+static void test_a_refused_limit_in_setup_stops_the_run_as_a_limit(void **state) {
+    (void)state;
+    sched_summary sum;
+    assert_int_equal(run_with_bad(SETUP, &sum), SCHED_LIMIT);
+    assert_int_equal(sum.shots_ok, 0);
+    assert_int_equal(attempts[1], 0);
+    assert_non_null(strstr(sum.error, "setup:"));
+    assert_non_null(strstr(sum.error, "max_current"));
 }
 
 int main(void) {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_a_refused_limit_stops_the_run_safe_without_retry),
+        cmocka_unit_test(test_a_refused_limit_in_setup_stops_the_run_as_a_limit),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

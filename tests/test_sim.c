@@ -730,6 +730,24 @@ static void test_adc_rounds_to_the_nearest_code(void **state) {
                 1e-6 * step);
     assert_near(sim_adc(&in, (code + 0.6 * VOLTS_PER_COUNT) * FIELD_PER_VOLT),
                 (code + VOLTS_PER_COUNT) * FIELD_PER_VOLT, 1e-6 * step);
+    /* the top code is range_hi less a step; a field not a number stays one */
+    assert_near(sim_adc(&in, 1), (10 - VOLTS_PER_COUNT) * FIELD_PER_VOLT, 1e-6 * step);
+    assert_near(sim_adc(&in, -1), -10 * FIELD_PER_VOLT, 1e-6 * step);
+    assert_true(isnan(sim_adc(&in, NAN)));
+    /* a sensor wired the other way round, and one of 32 bits */
+    rig_input neg = in, wide = in;
+    neg.field_per_volt = -FIELD_PER_VOLT;
+    wide.bits = 32;
+    for (int k = -50; k <= 50; k++) {
+        double field = 1.37e-11 * k;
+        assert_true(fabs(sim_adc(&neg, field) - field) <= 0.5 * step * (1 + 1e-9));
+        assert_true(fabs(sim_adc(&wide, field) - field) <= 0.5 * step / 65536 * (1 + 1e-6));
+    }
+    /* a field_per_volt too small to have a reciprocal still converts */
+    rig_input tiny = in;
+    tiny.field_per_volt = 1e-310;
+    assert_true(sim_adc(&tiny, 0) == 0);
+    assert_near(sim_adc(&tiny, 5e-310), 5e-310, 1e-312);     /* 5 V: a code exactly */
 }
 
 static void test_adc_clips_at_the_input_range(void **state) {

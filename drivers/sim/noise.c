@@ -113,10 +113,13 @@ static adc adc_of(const rig_input *in) {
                  in->field_per_volt != 0 ? 1 / in->field_per_volt : 0, 1 / step};
 }
 
+/* A field that is not a number stays one (a fault of the model shows, and
+ * is never quantized into a plausible code). */
 static inline double adc_convert(const adc *c, double field) {
     const rig_input *in = c->in;
-    if (in->field_per_volt == 0) return field;
-    double v = field * c->per_volt;
+    if (in->field_per_volt == 0 || isnan(field)) return field;
+    /* the reciprocal, unless field_per_volt is so small it has none */
+    double v = isfinite(c->per_volt) ? field * c->per_volt : field / in->field_per_volt;
     if (v < in->range_lo) v = in->range_lo;
     if (v > in->range_hi) v = in->range_hi;
     if (in->bits <= 0) return v * in->field_per_volt;
