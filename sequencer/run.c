@@ -44,18 +44,22 @@ static void free_shot(sched_shot *sh) {
     free(sh->soft);
 }
 
-/* Setup or teardown: no record, no retries. Returns 0 or -1 with err and
- * *limit set when what failed was a limit the driver refused. */
-static int run_part(sched *s, const compile_timeline *t, double *next, bool *limit, char *err,
-                    size_t n) {
-    if (t->nevents == 0 && t->duration == 0) return 0;
+/* How a run ends that stops short, without a signal or with one. */
+static sched_status stopped(const sched_run_args *a, bool limit) {
+    return *a->abort ? SCHED_INTERRUPTED : limit ? SCHED_LIMIT : SCHED_FAULT;
+}
+
+/* Setup or teardown: no record, no retries. Returns SCHED_OK, or how it
+ * ended the run (interrupted, a limit the driver refused, a fault) with err. */
+static sched_status run_part(sched *s, const compile_timeline *t, double *next, char *err,
+                             size_t n) {
+    if (t->nevents == 0 && t->duration == 0) return SCHED_OK;
     sched_shot sh = {.s = s, .tl = t, .t0 = *next};
     int rc = sched_attempt(&sh);
     if (rc) snprintf(err, n, "%s", sh.error[0] ? sh.error : "interrupted");
-    if (rc && sh.limit) *limit = true;
     *next = sh.t0 + t->duration;
     free_shot(&sh);
-    return rc;
+    return rc ? stopped(s->a, sh.limit) : SCHED_OK;
 }
 
 /* One attempt of shot k; hands its record over. Returns 0 ok, 1 failed,
@@ -146,15 +150,16 @@ sched_status sched_run(const sched_run_args *a, sched_summary *o) {
     clock_tighten_slack();
     double next = clock_now(s.clock) + (clock_is_virtual(s.clock) ? 0 : 0.010);
     char err[256] = "";
-    bool limit = false;     /* what setup or teardown failed on was a limit */
     const drv_ops *ops = a->ops;
-    if (ops->safe_state(a->driver, clock_now(s.clock), err, sizeof err) ||
-        run_part(&s, &a->plan->setup, &next, &limit, err, sizeof err)) {
-        o->status = *a->abort ? SCHED_INTERRUPTED : limit ? SCHED_LIMIT : SCHED_FAULT;
+    sched_status part = ops->safe_state(a->driver, clock_now(s.clock), err, sizeof err)
+                            ? stopped(a, false)
+                            : run_part(&s, &a->plan->setup, &next, err, sizeof err);
+    if (part != SCHED_OK) {
+        o->status = part;
         snprintf(o->error, sizeof o->error, "setup: %.200s", err);
     } else if (run_shots(&s, &next, o) == 0) {
-        if (run_part(&s, &a->plan->teardown, &next, &limit, err, sizeof err)) {
-            o->status = *a->abort ? SCHED_INTERRUPTED : limit ? SCHED_LIMIT : SCHED_FAULT;
+        if ((part = run_part(&s, &a->plan->teardown, &next, err, sizeof err)) != SCHED_OK) {
+            o->status = part;
             snprintf(o->error, sizeof o->error, "teardown: %.200s", err);
         } else if (o->shots_failed) {
             o->status = SCHED_FAILED;
