@@ -1,16 +1,15 @@
 /* store: the run folder (run-format.md) and its shot records: creating the
  * folder; building each record as an HDF5 file image in memory, writing it
  * under a temporary name, fsync, rename, fsync of the folder, journal line;
- * all on one writer thread behind a bounded queue (the only HDF5 caller).
+ * all on writer threads behind a bounded queue: two builders making the
+ * images (record_image.c), one committer putting them on the disk.
  * Not for the journal's line format (journal.c) nor for what a record holds. */
 #include "store.h"
 
 #include <errno.h>
 #include <fcntl.h>
-#include <hdf5.h>
 #include <inttypes.h>
 #include <jansson.h>
-#include <libdeflate.h>
 #include <libgen.h>
 #include <limits.h>
 #include <pthread.h>
@@ -23,18 +22,11 @@
 #include <unistd.h>
 
 #define STAGE_DEPTH 4          /* built images waiting for the committer */
-#define CHUNK_SAMPLES 65536     /* samples per chunk of a sample dataset */
-/* libdeflate's level 1: the zlib stream HDF5's deflate filter reads, made
- * in about a third of zlib's time at level 1 and a tenth smaller. */
-#define DEFLATE_LEVEL 1
-
+/* Record builders: the CPU a record takes, HDF5's share one at a time, the
+ * compression side by side (one builder alone was the run's slowest stage). */
+#define BUILDERS 2
 /* How far the record builder sits below the run's own priority (nice). */
 #define BUILD_NICE 10
-
-/* Debian's HDF5 is the serial build, unsafe from two threads at once: the
- * writers of two stores open together take turns through this lock. The
- * one process-wide state here, because the library's state is too. */
-static pthread_mutex_t hdf5_lock = PTHREAD_MUTEX_INITIALIZER;
 
 struct store {
     char *dir;
@@ -46,15 +38,21 @@ struct store {
     store_record **queue;
     size_t capacity, head, count;
     /* Records built into file images, waiting for the committer: building
-     * (CPU) and committing (fsync, mostly waiting for the disk) overlap. */
+     * (CPU) and committing (fsync, mostly waiting for the disk) overlap.
+     * Each record taken from the queue gets the next ticket, and its image
+     * the stage's slot ticket % STAGE_DEPTH once the committer has taken
+     * every ticket up to STAGE_DEPTH before it: whichever builder finishes
+     * first, the committer takes them in the order they were queued. */
     pthread_cond_t built, built_room;
-    struct built_record *stage[STAGE_DEPTH];
-    size_t stage_head, stage_count;
+    struct built_record *stage[STAGE_DEPTH];    /* NULL in a filled slot: dropped */
+    bool filled[STAGE_DEPTH];
+    uint64_t tickets, stage_base;   /* the next ticket given; the next to commit */
     size_t inflight;                /* taken from queue, not yet committed */
+    int builders;                   /* builder threads still running */
     bool started, stopping, building_done, failed;
     size_t ok, nfailed, lost;       /* lost: dropped after the writer failed */
     char error[640];
-    pthread_t writer, committer;
+    pthread_t builder[BUILDERS], committer;
 };
 
 /* A record's file image, made by the builder for the committer. */
@@ -324,338 +322,6 @@ static int check_record(const store_record *r, char *err, size_t errlen) {
     return 0;
 }
 
-/* ---- HDF5 (writer thread only) -------------------------------------------- */
-
-typedef struct {
-    hid_t str;                  /* variable-length UTF-8 string type */
-    struct libdeflate_compressor *deflate;  /* the builder's, kept across records */
-    void *chunk;                /* a compressed chunk, deflate_room bytes */
-    size_t deflate_room;
-    char err[300];              /* the first failure, with HDF5's innermost reason */
-} h5w;
-
-static herr_t innermost(unsigned n, const H5E_error2_t *e, void *data) {
-    if (n == 0 && e->desc) snprintf(data, 200, "%s", e->desc);
-    return 0;
-}
-
-/* Notes the first failure with HDF5's innermost message. */
-static int h5_fail(h5w *w, const char *what) {
-    if (w->err[0]) return -1;
-    char desc[200] = "";
-    H5Ewalk2(H5E_DEFAULT, H5E_WALK_UPWARD, innermost, desc);
-    snprintf(w->err, sizeof w->err, "%s: %s", what, desc[0] ? desc : "HDF5 error");
-    return -1;
-}
-
-static int attr(h5w *w, hid_t loc, const char *name, hid_t type, const void *value) {
-    hid_t space = H5Screate(H5S_SCALAR);
-    hid_t a = space < 0 ? -1 : H5Acreate2(loc, name, type, space, H5P_DEFAULT, H5P_DEFAULT);
-    int rc = a < 0 || H5Awrite(a, type, value) < 0 ? h5_fail(w, name) : 0;
-    if (a >= 0) H5Aclose(a);
-    if (space >= 0) H5Sclose(space);
-    return rc;
-}
-
-static int attr_str(h5w *w, hid_t loc, const char *name, const char *value) {
-    const char *v = text(value);
-    return attr(w, loc, name, w->str, &v);
-}
-
-static int attr_int(h5w *w, hid_t loc, const char *name, int64_t value) {
-    int32_t v = (int32_t)value;     /* check_record keeps every count in range */
-    return attr(w, loc, name, H5T_STD_I32LE, &v);
-}
-
-static int attr_f64(h5w *w, hid_t loc, const char *name, double value) {
-    return attr(w, loc, name, H5T_IEEE_F64LE, &value);
-}
-
-static int write_root(h5w *w, hid_t f, const store_record *r, bool failed) {
-    int rc = attr_str(w, f, "format", "precess-shot");
-    rc |= attr_int(w, f, "format_version", 1);
-    rc |= attr_str(w, f, "run", r->run);
-    rc |= attr_int(w, f, "shot", r->shot);
-    rc |= attr_int(w, f, "attempt", r->attempt);
-    rc |= attr_int(w, f, "point", r->point);
-    rc |= attr_int(w, f, "average", r->average);
-    rc |= attr_str(w, f, "kind", r->kind);
-    rc |= attr_str(w, f, "status", failed ? "failed" : "ok");
-    rc |= attr_str(w, f, "started_utc", r->started_utc);
-    rc |= attr_str(w, f, "driver", r->driver);
-    rc |= attr_str(w, f, "precess_version", r->precess_version);
-    rc |= attr_str(w, f, "plan_sha256", r->plan_sha256);
-    if (failed) rc |= attr_str(w, f, "error", r->error && *r->error ? r->error : "failed");
-    return rc ? -1 : 0;
-}
-
-static hid_t group_new(h5w *w, hid_t parent, const char *name) {
-    hid_t g = H5Gcreate2(parent, name, H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
-    if (g < 0) h5_fail(w, name);
-    return g;
-}
-
-/* /GROUP/NAME: scalar float64 datasets, each with its units: each[i], or
- * units for all when each is NULL. */
-static int write_scalars(h5w *w, hid_t f, const char *group, size_t n, const char **names,
-                         const double *values, const char *units, const char *const *each) {
-    hid_t g = group_new(w, f, group), space = H5Screate(H5S_SCALAR);
-    int rc = g < 0 || space < 0 ? -1 : 0;
-    for (size_t i = 0; i < n && rc == 0; i++) {
-        hid_t d = H5Dcreate2(g, names[i], H5T_IEEE_F64LE, space, H5P_DEFAULT, H5P_DEFAULT,
-                             H5P_DEFAULT);
-        if (d < 0 || H5Dwrite(d, H5T_NATIVE_DOUBLE, H5S_ALL, H5S_ALL, H5P_DEFAULT,
-                              &values[i]) < 0)
-            rc = h5_fail(w, names[i]);
-        if (rc == 0) rc = attr_str(w, d, "units", each && each[i] ? each[i] : units);
-        if (d >= 0) H5Dclose(d);
-    }
-    if (space >= 0) H5Sclose(space);
-    if (g >= 0) H5Gclose(g);
-    return rc;
-}
-
-static int write_pulse(h5w *w, hid_t pulses, size_t k, const store_pulse *p) {
-    char name[32];
-    snprintf(name, sizeof name, "%zu", k + 1);
-    hid_t g = group_new(w, pulses, name);
-    if (g < 0) return -1;
-    int rc = attr_str(w, g, "coil", p->coil);
-    rc |= attr_str(w, g, "shape", p->shape);
-    rc |= attr_f64(w, g, "duration", p->duration);
-    rc |= attr_f64(w, g, "amplitude", p->amplitude);
-    rc |= attr_f64(w, g, "start", p->start);
-    rc |= attr_f64(w, g, "end", p->end);
-    rc |= attr_int(w, g, "polarity", p->polarity);
-    for (size_t i = 0; i < p->nangles && rc == 0; i++) {
-        char angle[160];
-        snprintf(angle, sizeof angle, "angle_%s", p->nuclei[i]);
-        rc |= attr_f64(w, g, angle, p->angles[i]);
-    }
-    H5Gclose(g);
-    return rc ? -1 : 0;
-}
-
-static int write_pulses(h5w *w, hid_t f, const store_record *r) {
-    hid_t g = group_new(w, f, "pulses");
-    if (g < 0) return -1;
-    int rc = 0;
-    for (size_t k = 0; k < r->npulses && rc == 0; k++) rc = write_pulse(w, g, k, &r->pulses[k]);
-    H5Gclose(g);
-    if (rc == 0 && r->npulses > 0 &&
-        H5Lcreate_soft("/pulses/1", f, "pulse", H5P_DEFAULT, H5P_DEFAULT) < 0)
-        rc = h5_fail(w, "/pulse");
-    return rc;
-}
-
-typedef struct {
-    int32_t step;
-    const char *label, *kind;
-    double planned, actual;
-} event_row;
-
-static hid_t event_type(h5w *w) {
-    hid_t t = H5Tcreate(H5T_COMPOUND, sizeof(event_row));
-    if (t < 0 || H5Tinsert(t, "step", HOFFSET(event_row, step), H5T_NATIVE_INT32) < 0 ||
-        H5Tinsert(t, "label", HOFFSET(event_row, label), w->str) < 0 ||
-        H5Tinsert(t, "kind", HOFFSET(event_row, kind), w->str) < 0 ||
-        H5Tinsert(t, "planned", HOFFSET(event_row, planned), H5T_NATIVE_DOUBLE) < 0 ||
-        H5Tinsert(t, "actual", HOFFSET(event_row, actual), H5T_NATIVE_DOUBLE) < 0) {
-        if (t >= 0) H5Tclose(t);
-        h5_fail(w, "/events type");
-        return -1;
-    }
-    return t;
-}
-
-static int write_events(h5w *w, hid_t f, const store_record *r) {
-    event_row *rows = r->nevents ? calloc(r->nevents, sizeof *rows) : NULL;
-    if (r->nevents && !rows) return snprintf(w->err, sizeof w->err, "/events: out of memory"), -1;
-    for (size_t i = 0; i < r->nevents; i++) {
-        const store_event *e = &r->events[i];
-        rows[i] = (event_row){e->step, text(e->label), text(e->kind), e->planned, e->actual};
-    }
-    hsize_t dims[1] = {r->nevents};
-    hid_t t = event_type(w), space = H5Screate_simple(1, dims, NULL), d = -1;
-    /* A conversion buffer the size of the table, not HDF5's default 1 MB
-     * (allocated and cleared for every record). */
-    hid_t xfer = H5Pcreate(H5P_DATASET_XFER);
-    size_t buffer = (r->nevents + 1) * 2 * sizeof(event_row);
-    int rc = t < 0 || space < 0 || xfer < 0 || H5Pset_buffer(xfer, buffer, NULL, NULL) < 0
-                 ? h5_fail(w, "/events")
-                 : 0;
-    if (rc == 0) d = H5Dcreate2(f, "events", t, space, H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
-    if (rc == 0 && (d < 0 || (r->nevents && H5Dwrite(d, t, H5S_ALL, H5S_ALL, xfer, rows) < 0)))
-        rc = h5_fail(w, "/events");
-    if (xfer >= 0) H5Pclose(xfer);
-    if (rc == 0) rc = attr_str(w, d, "units", "s");
-    if (d >= 0) H5Dclose(d);
-    if (space >= 0) H5Sclose(space);
-    if (t >= 0) H5Tclose(t);
-    free(rows);
-    return rc;
-}
-
-static int channel_attrs(h5w *w, hid_t d, const store_channel *c) {
-    int rc = attr_str(w, d, "units", c->units);
-    rc |= attr_f64(w, d, "sample_rate", c->sample_rate);
-    rc |= attr_f64(w, d, "t0", c->t0);
-    rc |= attr_int(w, d, "adc_bits", c->adc_bits);
-    rc |= attr_f64(w, d, "volts_per_count", c->volts_per_count);
-    rc |= attr_int(w, d, "receiver_sign", c->receiver_sign);
-    return rc ? -1 : 0;
-}
-
-/* The samples chunk by chunk, each compressed here into the zlib stream
- * HDF5's deflate filter would have made and handed to HDF5 as it is (its
- * direct chunk write): the dataset's filter pipeline still says deflate,
- * and every reader decodes it so. The last chunk is padded with zeros to
- * the chunk's size, as HDF5 stores edge chunks. */
-static int write_chunks(h5w *w, hid_t d, const store_channel *c, size_t chunk) {
-    if (!w->deflate)
-        return snprintf(w->err, sizeof w->err, "%s: no memory for the compressor", c->input), -1;
-    size_t room = libdeflate_zlib_compress_bound(w->deflate, chunk * sizeof(float));
-    if (room > w->deflate_room) {
-        void *more = realloc(w->chunk, room);
-        if (!more) return snprintf(w->err, sizeof w->err, "%s: out of memory", c->input), -1;
-        w->chunk = more;
-        w->deflate_room = room;
-    }
-    float *edge = NULL;
-    int rc = 0;
-    for (size_t at = 0; at < c->n && rc == 0; at += chunk) {
-        const float *from = c->samples + at;
-        if (c->n - at < chunk) {
-            if (!(edge = calloc(chunk, sizeof *edge))) {
-                snprintf(w->err, sizeof w->err, "%s: out of memory", c->input);
-                rc = -1;
-                break;
-            }
-            memcpy(edge, from, (c->n - at) * sizeof *edge);
-            from = edge;
-        }
-        size_t len = libdeflate_zlib_compress(w->deflate, from, chunk * sizeof(float), w->chunk,
-                                              w->deflate_room);
-        hsize_t offset[1] = {at};
-        if (len == 0 || H5Dwrite_chunk(d, H5P_DEFAULT, 0, offset, len, w->chunk) < 0)
-            rc = h5_fail(w, c->input);
-    }
-    free(edge);
-    return rc;
-}
-
-/* One input's samples: float32, chunked, deflate-compressed. */
-static int write_channel(h5w *w, hid_t g, const store_channel *c) {
-    hsize_t dims[1] = {c->n}, max[1] = {c->n ? c->n : H5S_UNLIMITED};
-    hsize_t chunk[1] = {c->n == 0 ? 1 : c->n < CHUNK_SAMPLES ? c->n : CHUNK_SAMPLES};
-    hid_t space = H5Screate_simple(1, dims, max), plist = H5Pcreate(H5P_DATASET_CREATE), d = -1;
-    int rc = space < 0 || plist < 0 || H5Pset_chunk(plist, 1, chunk) < 0 ||
-                     H5Pset_fill_time(plist, H5D_FILL_TIME_NEVER) < 0 ||
-                     H5Pset_deflate(plist, DEFLATE_LEVEL) < 0
-                 ? h5_fail(w, c->input)
-                 : 0;
-    if (rc == 0) d = H5Dcreate2(g, c->input, H5T_IEEE_F32LE, space, H5P_DEFAULT, plist,
-                                H5P_DEFAULT);
-    if (rc == 0 && d < 0) rc = h5_fail(w, c->input);
-    bool as_in_file = __BYTE_ORDER__ == __ORDER_LITTLE_ENDIAN__;   /* float32 LE */
-    if (rc == 0 && c->n && as_in_file) rc = write_chunks(w, d, c, (size_t)chunk[0]);
-    else if (rc == 0 && c->n &&
-             H5Dwrite(d, H5T_NATIVE_FLOAT, H5S_ALL, H5S_ALL, H5P_DEFAULT, c->samples) < 0)
-        rc = h5_fail(w, c->input);
-    if (rc == 0) rc = channel_attrs(w, d, c);
-    if (d >= 0) H5Dclose(d);
-    if (plist >= 0) H5Pclose(plist);
-    if (space >= 0) H5Sclose(space);
-    return rc;
-}
-
-static int write_acquisitions(h5w *w, hid_t f, const store_record *r) {
-    hid_t top = group_new(w, f, "acquisitions");
-    if (top < 0) return -1;
-    int rc = 0;
-    for (size_t k = 0; k < r->nacquisitions && rc == 0; k++) {
-        char name[32];
-        snprintf(name, sizeof name, "%zu", k + 1);
-        hid_t g = group_new(w, top, name);
-        if (g < 0) rc = -1;
-        for (size_t c = 0; c < r->acquisitions[k].nchannels && rc == 0; c++)
-            rc = write_channel(w, g, &r->acquisitions[k].channels[c]);
-        if (g >= 0) H5Gclose(g);
-    }
-    H5Gclose(top);
-    if (rc == 0 && r->nacquisitions > 0 &&
-        H5Lcreate_soft("/acquisitions/1", f, "signal", H5P_DEFAULT, H5P_DEFAULT) < 0)
-        rc = h5_fail(w, "/signal");
-    return rc;
-}
-
-/* In memory: HDF5's core driver without a backing store, so that a full disk
- * can never leave HDF5 holding a file it cannot close; growing by about the
- * record's size keeps the reallocations few. */
-static hid_t memory_fapl(const store_record *r) {
-    size_t bytes = 1 << 16;
-    for (size_t k = 0; k < r->nacquisitions; k++)
-        for (size_t c = 0; c < r->acquisitions[k].nchannels; c++)
-            bytes += r->acquisitions[k].channels[c].n * sizeof(float);
-    hid_t fapl = H5Pcreate(H5P_FILE_ACCESS);
-    if (fapl >= 0 && H5Pset_fapl_core(fapl, bytes, 0) < 0) {
-        H5Pclose(fapl);
-        return -1;
-    }
-    return fapl;
-}
-
-static int write_contents(h5w *w, hid_t f, const store_record *r, bool failed) {
-    int rc = write_root(w, f, r, failed);
-    if (rc == 0)
-        rc = write_scalars(w, f, "parameters", r->nparameters, r->parameter_names,
-                           r->parameters, "1", r->parameter_units);
-    if (rc == 0)
-        rc = write_scalars(w, f, "currents", r->ncoils, r->coil_names, r->currents, "A", NULL);
-    if (rc == 0)
-        rc = write_scalars(w, f, "fields", r->nplaces, r->place_names, r->fields, "T", NULL);
-    if (rc == 0) rc = write_pulses(w, f, r);
-    if (rc == 0) rc = write_events(w, f, r);
-    if (rc == 0) rc = write_acquisitions(w, f, r);
-    return rc;
-}
-
-/* The whole record as the bytes of an HDF5 file (flushed, closed), in
- * *image (malloc'd, the caller frees) of *len bytes. */
-static int build_image(h5w *w, const char *name, const store_record *r, bool failed,
-                       void **image, size_t *len) {
-    w->err[0] = '\0';
-    *image = NULL;
-    w->str = H5Tcopy(H5T_C_S1);
-    if (w->str < 0 || H5Tset_size(w->str, H5T_VARIABLE) < 0 ||
-        H5Tset_cset(w->str, H5T_CSET_UTF8) < 0) {
-        if (w->str >= 0) H5Tclose(w->str);
-        return h5_fail(w, "string type");
-    }
-    hid_t fapl = memory_fapl(r);
-    /* HDF5 first tries to open the name as an existing file, even in memory:
-     * under /dev/null no file can be, so a record of that name in the
-     * current folder is never read. */
-    char where[128];
-    snprintf(where, sizeof where, "/dev/null/%s", name);
-    hid_t f = fapl < 0 ? -1 : H5Fcreate(where, H5F_ACC_TRUNC, H5P_DEFAULT, fapl);
-    int rc = f < 0 ? h5_fail(w, "create") : write_contents(w, f, r, failed);
-    if (rc == 0 && H5Fflush(f, H5F_SCOPE_GLOBAL) < 0) rc = h5_fail(w, "flush");
-    ssize_t size = rc == 0 ? H5Fget_file_image(f, NULL, 0) : -1;
-    if (rc == 0 && (size <= 0 || !(*image = malloc((size_t)size)) ||
-                    H5Fget_file_image(f, *image, (size_t)size) != size))
-        rc = h5_fail(w, "file image");
-    if (f >= 0 && H5Fclose(f) < 0 && rc == 0) rc = h5_fail(w, "close");
-    if (fapl >= 0) H5Pclose(fapl);
-    H5Tclose(w->str);
-    if (rc != 0) {
-        free(*image);
-        *image = NULL;
-    }
-    *len = rc == 0 ? (size_t)size : 0;
-    return rc;
-}
-
 /* ---- one record to disk, then its journal line ------------------------------ */
 
 static json_t *json_text(const char *s) {
@@ -730,7 +396,7 @@ static const char *finish_file(int dirfd, int fd, const char *tmp, const char *n
 }
 
 /* The builder's half: r as the bytes of its file, and their sha256. */
-static void build_record(h5w *w, built_record *b) {
+static void build_record(record_imager *w, built_record *b) {
     const store_record *r = b->r;
     b->failed = record_failed(r);
     if (b->failed)
@@ -739,15 +405,19 @@ static void build_record(h5w *w, built_record *b) {
         snprintf(b->name, sizeof b->name, "%06" PRIu32 ".h5", r->shot);
     snprintf(b->tmp, sizeof b->tmp, ".%s.tmp", b->name);
     snprintf(b->rel, sizeof b->rel, "records/%s%s", b->failed ? "failed/" : "", b->name);
-    pthread_mutex_lock(&hdf5_lock);
-    int rc = build_image(w, b->name, r, b->failed, &b->image, &b->len);
-    pthread_mutex_unlock(&hdf5_lock);
-    b->rc = rc == 0 ? 0 : -1;
-    if (rc != 0)
-        snprintf(b->err, sizeof b->err, "record %s not written: HDF5 could not build it (%s)",
-                 b->rel, w->err);
+    char why[320] = "out of memory for its builder";
+    b->rc = w && record_image_build(w, b->name, r, b->failed, &b->image, &b->len, why,
+                                    sizeof why) == 0 ? 0 : -1;
+    if (b->rc != 0)
+        snprintf(b->err, sizeof b->err, "record %s not written: it could not be built (%s)",
+                 b->rel, why);
     else if (!b->failed)
         store_sha256_hex(b->image, b->len, b->sha);     /* the very bytes written */
+}
+
+/* The folder a built record goes to. */
+static int folder_of(const store *s, const built_record *b) {
+    return b->failed ? s->failedfd : s->recordsfd;
 }
 
 /* The committer's half, for the n images the stage held: each into place
@@ -755,10 +425,6 @@ static void build_record(h5w *w, built_record *b) {
  * journal lines in order, each fsync'd. A failure stops there: the images
  * placed before it are still made durable and journalled. Returns how many
  * were journalled; fewer than n means err says why the next one was not. */
-/* The folder a built record goes to. */
-static int folder_of(const store *s, const built_record *b) {
-    return b->failed ? s->failedfd : s->recordsfd;
-}
 
 static size_t commit_batch(store *s, built_record *const *b, size_t n, char *err,
                            size_t errlen) {
@@ -827,19 +493,25 @@ static void lower_priority(int by) {
 
 void store_yield_to_writer(void) { lower_priority(BUILD_NICE); }
 
-/* The builder: records from the queue to file images on the stage. A
- * record it cannot take memory for fails the writer like a disk error. */
-static void *writer_main(void *arg) {
+/* With s->lock held: the ticket's slot on the stage, once the committer
+ * has room for it, filled with b (NULL: the record was dropped). */
+static void place_built(store *s, uint64_t ticket, built_record *b) {
+    while (ticket >= s->stage_base + STAGE_DEPTH) pthread_cond_wait(&s->built_room, &s->lock);
+    s->stage[ticket % STAGE_DEPTH] = b;
+    s->filled[ticket % STAGE_DEPTH] = true;
+    pthread_cond_signal(&s->built);
+}
+
+/* A builder: records from the queue to file images on the stage. A record
+ * it cannot take memory for fails the writer like a disk error. */
+static void *builder_main(void *arg) {
     store *s = arg;
     /* Building is CPU work nothing waits on at once: niced, it leaves a core
      * to the scheduler's thread and to the committer the moment either needs
      * one (the committer to start the next write as soon as the disk answers). */
     lower_priority(BUILD_NICE);
     pthread_setname_np(pthread_self(), "precess-build");    /* named once it is niced */
-    h5w w = {.deflate = libdeflate_alloc_compressor(DEFLATE_LEVEL)};
-    pthread_mutex_lock(&hdf5_lock);
-    H5Eset_auto2(H5E_DEFAULT, NULL, NULL);
-    pthread_mutex_unlock(&hdf5_lock);
+    record_imager *w = record_imager_new();     /* NULL: each record fails for memory */
     pthread_mutex_lock(&s->lock);
     for (;;) {
         while (s->count == 0 && !s->stopping) pthread_cond_wait(&s->work, &s->lock);
@@ -848,13 +520,14 @@ static void *writer_main(void *arg) {
         s->head = (s->head + 1) % s->capacity;
         s->count--;
         s->inflight++;
+        uint64_t ticket = s->tickets++;
         bool skip = s->failed;
         pthread_cond_broadcast(&s->room);
         pthread_mutex_unlock(&s->lock);
         built_record *b = skip ? NULL : calloc(1, sizeof *b);
         if (b) {
             b->r = r;
-            build_record(&w, b);
+            build_record(w, b);
         } else {
             store_record_free(r);
         }
@@ -863,29 +536,24 @@ static void *writer_main(void *arg) {
             s->inflight--;
             if (skip) {
                 s->lost++;
-            } else {
+            } else if (!s->failed) {
                 s->failed = true;
                 snprintf(s->error, sizeof s->error, "record writer: out of memory");
             }
             pthread_cond_broadcast(&s->room);
-            continue;
         }
-        while (s->stage_count == STAGE_DEPTH) pthread_cond_wait(&s->built_room, &s->lock);
-        s->stage[(s->stage_head + s->stage_count) % STAGE_DEPTH] = b;
-        s->stage_count++;
-        pthread_cond_signal(&s->built);
+        place_built(s, ticket, b);
     }
-    s->building_done = true;
+    if (--s->builders == 0) s->building_done = true;
     pthread_cond_signal(&s->built);
     pthread_mutex_unlock(&s->lock);
-    libdeflate_free_compressor(w.deflate);
-    free(w.chunk);
+    record_imager_free(w);
     return NULL;
 }
 
-/* The committer: images from the stage into the folder, in order, all the
- * stage holds at a time: when the disk is the slower, one folder fsync
- * serves several records. */
+/* The committer: images from the stage into the folder, in the order they
+ * were queued, all the stage holds in a row at a time: when the disk is the
+ * slower, one folder fsync serves several records. */
 static void *committer_main(void *arg) {
     store *s = arg;
     pthread_setname_np(pthread_self(), "precess-commit");
@@ -893,16 +561,22 @@ static void *committer_main(void *arg) {
     built_record *batch[STAGE_DEPTH];
     pthread_mutex_lock(&s->lock);
     for (;;) {
-        while (s->stage_count == 0 && !s->building_done) pthread_cond_wait(&s->built, &s->lock);
-        if (s->stage_count == 0) break;
-        size_t n = s->stage_count;
-        for (size_t i = 0; i < n; i++) batch[i] = s->stage[(s->stage_head + i) % STAGE_DEPTH];
-        s->stage_head = (s->stage_head + n) % STAGE_DEPTH;
-        s->stage_count = 0;
+        while (!s->filled[s->stage_base % STAGE_DEPTH] && !s->building_done)
+            pthread_cond_wait(&s->built, &s->lock);
+        if (!s->filled[s->stage_base % STAGE_DEPTH]) break;    /* all built, all taken */
+        size_t n = 0;
+        for (size_t i = 0; i < STAGE_DEPTH && s->filled[s->stage_base % STAGE_DEPTH]; i++) {
+            size_t slot = s->stage_base++ % STAGE_DEPTH;
+            if (s->stage[slot]) batch[n++] = s->stage[slot];
+            s->stage[slot] = NULL;
+            s->filled[slot] = false;
+        }
+        /* A dropped record's slot comes after the failure that dropped it:
+         * the batch holding it is skipped whole. */
         bool skip = s->failed;
-        pthread_cond_signal(&s->built_room);
+        pthread_cond_broadcast(&s->built_room);
         pthread_mutex_unlock(&s->lock);
-        size_t done = skip ? 0 : commit_batch(s, batch, n, err, sizeof err);
+        size_t done = skip || n == 0 ? 0 : commit_batch(s, batch, n, err, sizeof err);
         size_t nfailed = 0;
         for (size_t i = 0; i < n; i++) {
             if (i < done && batch[i]->failed) nfailed++;
@@ -950,16 +624,22 @@ int store_start(store *s, size_t capacity, char *err, size_t errlen) {
     sigset_t all, old;
     sigfillset(&all);
     pthread_sigmask(SIG_SETMASK, &all, &old);
-    int rc = pthread_create(&s->committer, NULL, committer_main, s);
-    if (rc == 0) {
-        rc = pthread_create(&s->writer, NULL, writer_main, s);
-        if (rc != 0) {      /* the committer ends at once: nothing will be built */
-            pthread_mutex_lock(&s->lock);
-            s->building_done = true;
-            pthread_cond_signal(&s->built);
-            pthread_mutex_unlock(&s->lock);
-            pthread_join(s->committer, NULL);
-        }
+    s->builders = BUILDERS;
+    int rc = pthread_create(&s->committer, NULL, committer_main, s), made = 0;
+    bool committing = rc == 0;
+    while (rc == 0 && made < BUILDERS &&
+           (rc = pthread_create(&s->builder[made], NULL, builder_main, s)) == 0)
+        made++;
+    if (rc != 0 && committing) {    /* the builders made stop at once, then the committer */
+        pthread_mutex_lock(&s->lock);
+        s->stopping = true;
+        s->builders -= BUILDERS - made;
+        if (s->builders == 0) s->building_done = true;
+        pthread_cond_broadcast(&s->work);
+        pthread_cond_signal(&s->built);
+        pthread_mutex_unlock(&s->lock);
+        for (int i = 0; i < made; i++) pthread_join(s->builder[i], NULL);
+        pthread_join(s->committer, NULL);
     }
     pthread_sigmask(SIG_SETMASK, &old, NULL);
     if (rc != 0) {
@@ -1033,7 +713,7 @@ int store_finish(store *s, size_t *lost, char *err, size_t errlen) {
     pthread_cond_broadcast(&s->room);
     pthread_mutex_unlock(&s->lock);
     if (s->started) {
-        pthread_join(s->writer, NULL);
+        for (int i = 0; i < BUILDERS; i++) pthread_join(s->builder[i], NULL);
         pthread_join(s->committer, NULL);
     }
     *lost = s->lost;

@@ -120,6 +120,20 @@ int journal_append(store *s, const char *event, void *object, char *err, size_t 
 /* The current time as ISO 8601 UTC with microseconds. */
 void journal_time_now(char *buf, size_t n);
 
+/* ---- a record as the bytes of its file (record_image.c) ------------------- */
+
+/* A builder of shot records' HDF5 file images, one per thread; it keeps its
+ * HDF5 types and buffers from one record to the next. NULL: out of memory. */
+typedef struct record_imager record_imager;
+record_imager *record_imager_new(void);
+void record_imager_free(record_imager *w);
+/* r as the bytes of a complete HDF5 file (run-format.md's layout; failed:
+ * an attempt's partial record) in *image, malloc'd, of *len bytes. Several
+ * imagers may build at once on their own threads: they compress the samples
+ * side by side and take turns for HDF5. 0, or -1 with err. */
+int record_image_build(record_imager *w, const char *name, const store_record *r, bool failed,
+                       void **image, size_t *len, char *err, size_t errlen);
+
 /* ---- hashing ------------------------------------------------------------- */
 
 /* SHA-256 of bytes as 64 lower-case hex digits and a NUL (FIPS 180-4). */
