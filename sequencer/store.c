@@ -534,9 +534,9 @@ static void *builder_main(void *arg) {
         pthread_mutex_lock(&s->lock);
         if (!b) {
             s->inflight--;
-            if (skip) {
+            if (skip || s->failed) {    /* failed meanwhile: dropped after the failure */
                 s->lost++;
-            } else if (!s->failed) {
+            } else {
                 s->failed = true;
                 snprintf(s->error, sizeof s->error, "record writer: out of memory");
             }
