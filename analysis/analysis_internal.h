@@ -27,6 +27,11 @@ void an_lines_subtract(const an_line_fit *lines, size_t nlines, double rate, dou
 an_fit_space **an_work_fit_space(an_work *w);
 double *an_work_scratch(an_work *w, size_t n);
 
+/* spectrum.c: held around every fftw_plan_* and fftw_destroy_plan of the
+ * analysis (FFTW's planner is not thread-safe; fftw_execute is). */
+void an_planner_lock(void);
+void an_planner_unlock(void);
+
 /* outfile.c: a file written whole: an_out_open makes a temporary file beside
  * path (path must outlive it), writes are buffered (a failed one is kept and
  * reported by an_out_finish), an_out_finish fsyncs and renames it into place,

@@ -3,7 +3,7 @@
  * harmonic, with the fundamental refined from the data. Not a notch filter:
  * a line between harmonics keeps its shape. Not for finding NMR lines, and
  * not for interference that changes during the trace (one amplitude each). */
-#include "analysis.h"
+#include "analysis_internal.h"
 
 #include <fftw3.h>     /* before complex.h: fftw_complex stays double[2] */
 #include <complex.h>
@@ -322,7 +322,9 @@ static int coarse_scan(const fit_context *fc, double lo, double step, size_t m, 
     /* In place: 2 nbins doubles, the trace in, the spectrum out. */
     double *buf = fftw_malloc(2 * nbins * sizeof *buf);
     fftw_plan plan = NULL;
+    an_planner_lock();
     if (buf) plan = fftw_plan_dft_r2c_1d((int)nfft, buf, (fftw_complex *)buf, FFTW_ESTIMATE);
+    an_planner_unlock();
     if (!plan) {
         fftw_free(buf);
         return -1;
@@ -334,7 +336,9 @@ static int coarse_scan(const fit_context *fc, double lo, double step, size_t m, 
         buf[k] = buf[2 * k] * buf[2 * k] + buf[2 * k + 1] * buf[2 * k + 1];
     c->count = 0;
     scan_power(buf, nbins, (double)nfft / fc->rate, fc->nh, lo, step, m, c);
+    an_planner_lock();
     fftw_destroy_plan(plan);
+    an_planner_unlock();
     fftw_free(buf);
     return 0;
 }

@@ -17,10 +17,13 @@
 
 #define MAX_PLANS 8             /* FFT lengths whose plans are kept */
 
-/* FFTW's planner is not thread-safe (only fftw_execute is): every plan is
- * made and destroyed under this lock, the one process-wide state here,
- * because the library's state is too. */
+/* FFTW's planner is not thread-safe (only fftw_execute is): every plan of
+ * the analysis is made and destroyed under this lock (an_planner_lock), the
+ * one process-wide state here, because the library's state is too. */
 static pthread_mutex_t planner_lock = PTHREAD_MUTEX_INITIALIZER;
+
+void an_planner_lock(void) { pthread_mutex_lock(&planner_lock); }
+void an_planner_unlock(void) { pthread_mutex_unlock(&planner_lock); }
 
 typedef struct {
     size_t n;

@@ -17,6 +17,7 @@
 #include <gsl/gsl_rng.h>
 #include <jansson.h>
 #include <math.h>
+#include <pthread.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -308,6 +309,62 @@ static void test_noise_free_comb_is_removed_to_1e_5_of_itself(void **state) {
     scene_free(&s);
 }
 
+/* Traces of different lengths, each cleaned on its own thread over and
+ * over while the others plan FFTs of their lengths: FFTW's planner is not
+ * thread-safe, and every result must be the one the same trace gives alone. */
+enum { WORKERS = 4, ROUNDS = 25 };
+
+typedef struct {
+    scene s;
+    double *alone;          /* the trace cleaned with no other thread running */
+    an_mains m_alone;
+    int mismatches;         /* counted by the worker: cmocka asserts stay on main */
+} mains_job;
+
+static void *clean_over_and_over(void *arg) {
+    mains_job *j = arg;
+    double *y = malloc(j->s.n * sizeof *y);
+    for (int r = 0; r < ROUNDS && y; r++) {
+        memcpy(y, j->s.trace, j->s.n * sizeof *y);
+        an_mains m;
+        if (an_remove_mains(y, j->s.n, RATE, 50, 0.5, &m) != 0 ||
+            m.fundamental != j->m_alone.fundamental ||
+            memcmp(y, j->alone, j->s.n * sizeof *y) != 0)
+            j->mismatches++;
+    }
+    if (!y) j->mismatches = -1;
+    free(y);
+    return NULL;
+}
+
+static void test_threads_cleaning_at_once_get_what_each_gets_alone(void **state) {
+    (void)state;
+    static const size_t lengths[WORKERS] = {10000, 9973, 12288, 8191};
+    mains_job job[WORKERS];
+    pthread_t t[WORKERS];
+    for (int k = 0; k < WORKERS; k++) {
+        comb c = falling_comb(50.07 + 0.01 * k, 12, 1e-12, 30 + (unsigned long)k);
+        line l = {2e-12, 317.0 + k, 0.5};
+        scene_make(&job[k].s, lengths[k], RATE, &c, &l, 1e-14, 40 + (unsigned long)k);
+        job[k].alone = malloc(lengths[k] * sizeof(double));
+        assert_non_null(job[k].alone);
+        memcpy(job[k].alone, job[k].s.trace, lengths[k] * sizeof(double));
+        assert_int_equal(remove_mains(job[k].alone, lengths[k], RATE, 50, 0.5, &job[k].m_alone),
+                         0);
+        job[k].mismatches = 0;
+    }
+    for (int k = 0; k < WORKERS; k++)
+        assert_int_equal(pthread_create(&t[k], NULL, clean_over_and_over, &job[k]), 0);
+    for (int k = 0; k < WORKERS; k++) pthread_join(t[k], NULL);
+    for (int k = 0; k < WORKERS; k++) {
+        if (job[k].mismatches != 0)
+            fail_msg("length %zu: %d of %d rounds differ from the trace cleaned alone",
+                     lengths[k], job[k].mismatches, ROUNDS);
+        scene_free(&job[k].s);
+        free(job[k].alone);
+    }
+}
+
 static void test_silent_trace_has_nothing_removed(void **state) {
     (void)state;
     double y[1000] = {0};
@@ -528,6 +585,7 @@ int main(void) {
         cmocka_unit_test(test_trace_shorter_than_two_cycles_refused),
         cmocka_unit_test(test_bad_arguments_refused),
         cmocka_unit_test(test_cases_written_for_numpy),
+        cmocka_unit_test(test_threads_cleaning_at_once_get_what_each_gets_alone),
     };
     return cmocka_run_group_tests_name("line-noise removal", tests, NULL, NULL);
 }
