@@ -48,8 +48,8 @@ struct store {
     bool filled[STAGE_DEPTH];
     uint64_t tickets, stage_base;   /* the next ticket given; the next to commit */
     size_t inflight;                /* taken from queue, not yet committed */
-    int builders;                   /* builder threads still running */
-    bool started, stopping, building_done, failed;
+    int builders;                   /* builder threads still running (0: all built) */
+    bool started, stopping, failed;
     size_t ok, nfailed, lost;       /* lost: dropped after the writer failed */
     char error[640];
     pthread_t builder[BUILDERS], committer;
@@ -499,7 +499,7 @@ static void place_built(store *s, uint64_t ticket, built_record *b) {
     while (ticket >= s->stage_base + STAGE_DEPTH) pthread_cond_wait(&s->built_room, &s->lock);
     s->stage[ticket % STAGE_DEPTH] = b;
     s->filled[ticket % STAGE_DEPTH] = true;
-    pthread_cond_signal(&s->built);
+    if (ticket == s->stage_base) pthread_cond_signal(&s->built);  /* what the committer awaits */
 }
 
 /* A builder: records from the queue to file images on the stage. A record
@@ -544,8 +544,7 @@ static void *builder_main(void *arg) {
         }
         place_built(s, ticket, b);
     }
-    if (--s->builders == 0) s->building_done = true;
-    pthread_cond_signal(&s->built);
+    if (--s->builders == 0) pthread_cond_signal(&s->built);
     pthread_mutex_unlock(&s->lock);
     record_imager_free(w);
     return NULL;
@@ -561,7 +560,7 @@ static void *committer_main(void *arg) {
     built_record *batch[STAGE_DEPTH];
     pthread_mutex_lock(&s->lock);
     for (;;) {
-        while (!s->filled[s->stage_base % STAGE_DEPTH] && !s->building_done)
+        while (!s->filled[s->stage_base % STAGE_DEPTH] && s->builders > 0)
             pthread_cond_wait(&s->built, &s->lock);
         if (!s->filled[s->stage_base % STAGE_DEPTH]) break;    /* all built, all taken */
         size_t n = 0;
@@ -634,7 +633,6 @@ int store_start(store *s, size_t capacity, char *err, size_t errlen) {
         pthread_mutex_lock(&s->lock);
         s->stopping = true;
         s->builders -= BUILDERS - made;
-        if (s->builders == 0) s->building_done = true;
         pthread_cond_broadcast(&s->work);
         pthread_cond_signal(&s->built);
         pthread_mutex_unlock(&s->lock);
