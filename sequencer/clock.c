@@ -1,30 +1,61 @@
 /* clock: the scheduler's two clocks. The real one is CLOCK_MONOTONIC and
  * waits with an absolute clock_nanosleep to just before the deadline, then
  * spins; the virtual one (run --fast) jumps to each deadline at once.
+ * How long before the deadline the sleep ends is learnt from the sleeps
+ * themselves: how late a sleep wakes differs from host to host (about 50 us
+ * on one virtual machine, over 100 us on another), and a spin that starts
+ * after the deadline has passed is no spin at all.
  * Not for the event queue (schedule.c). */
 #include "schedule.h"
 
 #include <errno.h>
 #include <stdlib.h>
+#include <string.h>
 #include <sys/prctl.h>
 #include <time.h>
 
-#define SPIN 50e-6   /* the last stretch spun, past the sleep's wake-up jitter */
+#define SPIN_FIRST 50e-6   /* s spun before any sleep has been measured */
 
 struct sched_clock {
     bool virtual_time;
     double now;
+    double late[CLOCK_LATE_KEPT];  /* how late the last sleeps woke, s */
+    size_t nlate, next;
+    double spin;                   /* the stretch spun before a deadline, s */
 };
 
 sched_clock *clock_new(bool virtual_time) {
     sched_clock *c = calloc(1, sizeof *c);
-    if (c) c->virtual_time = virtual_time;
+    if (c) {
+        c->virtual_time = virtual_time;
+        c->spin = SPIN_FIRST;
+    }
     return c;
 }
 
 void clock_free(sched_clock *c) { free(c); }
 
 bool clock_is_virtual(const sched_clock *c) { return c->virtual_time; }
+
+double clock_spin(const sched_clock *c) { return c->spin; }
+
+static int by_value(const void *a, const void *b) {
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}
+
+double clock_spin_for(const double *late, size_t n) {
+    if (n == 0) return SPIN_FIRST;
+    if (n > CLOCK_LATE_KEPT) n = CLOCK_LATE_KEPT;
+    double sorted[CLOCK_LATE_KEPT];
+    memcpy(sorted, late, n * sizeof *sorted);
+    qsort(sorted, n, sizeof *sorted, by_value);
+    /* the 90th percentile: the rare wake-up the host delays by milliseconds
+     * would have every later one spin for as long */
+    double spin = sorted[(n * 9 + 9) / 10 - 1] + CLOCK_SPIN_PAD;
+    if (spin < CLOCK_SPIN_PAD) spin = CLOCK_SPIN_PAD;
+    return spin > CLOCK_SPIN_MOST ? CLOCK_SPIN_MOST : spin;
+}
 
 static double monotonic(void) {
     struct timespec t;
@@ -39,13 +70,18 @@ void clock_wait_until(sched_clock *c, double t) {
         if (t > c->now) c->now = t;
         return;
     }
-    double sleep_to = t - SPIN;
+    double sleep_to = t - c->spin;
     if (monotonic() < sleep_to) {
         struct timespec ts;
         ts.tv_sec = (time_t)sleep_to;
         ts.tv_nsec = (long)((sleep_to - (double)ts.tv_sec) * 1e9);
         while (clock_nanosleep(CLOCK_MONOTONIC, TIMER_ABSTIME, &ts, NULL) == EINTR) {
         }
+        /* learnt while there is still the spin's time to spare */
+        c->late[c->next] = monotonic() - sleep_to;
+        c->next = (c->next + 1) % CLOCK_LATE_KEPT;
+        if (c->nlate < CLOCK_LATE_KEPT) c->nlate++;
+        c->spin = clock_spin_for(c->late, c->nlate);
     }
     while (monotonic() < t) {
     }

@@ -26,9 +26,19 @@ sched_clock *clock_new(bool virtual_time);
 void clock_free(sched_clock *c);
 bool clock_is_virtual(const sched_clock *c);
 double clock_now(sched_clock *c);
-/* Returns when now >= t: the real clock sleeps to about 50 us before t
- * (absolute clock_nanosleep) and spins the rest; the virtual clock jumps. */
+/* Returns when now >= t: the real clock sleeps (absolute clock_nanosleep)
+ * to clock_spin before t and spins the rest; the virtual clock jumps. */
 void clock_wait_until(sched_clock *c, double t);
+
+/* The spin is learnt from how late the clock's last CLOCK_LATE_KEPT sleeps
+ * woke: their 90th percentile plus CLOCK_SPIN_PAD, at most CLOCK_SPIN_MOST;
+ * 50 us before the first. clock_spin_for is that rule over n lateness
+ * values (s); clock_spin the clock's spin now. */
+#define CLOCK_LATE_KEPT 64
+#define CLOCK_SPIN_PAD 20e-6
+#define CLOCK_SPIN_MOST 500e-6
+double clock_spin_for(const double *late, size_t n);
+double clock_spin(const sched_clock *c);
 /* Set the calling thread's timer slack to its minimum (1 ns). */
 void clock_tighten_slack(void);
 
