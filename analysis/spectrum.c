@@ -336,32 +336,41 @@ double an_noise_rms(const an_spectrum *s, const double *centre, const double *ex
 /* ---- the quick estimate of the progress line ------------------------------------ */
 
 int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int sign,
-                  double guard, an_line *out) {
+                  double guard, double mains, an_line *out) {
     an_trace tr;
     an_spectrum sp;
     if (!w || n < 16 || rate <= 0 || an_prepare(w, samples, n, rate, 0, sign, 0, 0, &tr) ||
         an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, 1, &sp))
         return -1;
+    /* the bins next to a mains harmonic are no candidates and no noise: as
+     * far as the resolution smears it, and as far as the mains may wander */
+    double skip = fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df);
+    size_t harmonics = mains > 0 ? (size_t)fmin((double)sp.n * sp.df / mains, 1e5) : 0;
     double best = -1;
-    size_t peak = 1;
+    size_t peak = 0;
     for (size_t k = 1; k < sp.n; k++) {
+        double f = (double)k * sp.df, h = harmonics ? round(f / mains) : 0;
+        if (h >= 1 && fabs(f - h * mains) <= skip + AN_QUICK_MAINS_WANDER * h * mains) continue;
         double m = sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
         if (m > best) {
             best = m;
             peak = k;
         }
     }
-    double sum = 0;
-    size_t count = 0;
-    for (size_t k = 1; k < sp.n; k++) {
-        double f = (double)k * sp.df;
-        if (fabs(f - (double)peak * sp.df) <= guard || f <= guard) continue;
-        sum += sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
-        count++;
-    }
+    if (!peak) return -1;
+    double *centre = malloc(2 * (harmonics + 1) * sizeof *centre);
+    if (!centre) return -1;
+    double *exclude = centre + harmonics + 1;
+    centre[0] = (double)peak * sp.df;
+    exclude[0] = guard;
+    for (size_t h = 1; h <= harmonics; h++)
+        centre[h] = (double)h * mains,
+        exclude[h] = skip + AN_QUICK_MAINS_WANDER * (double)h * mains;
+    double noise = an_noise_rms(&sp, centre, exclude, harmonics + 1, guard);
+    free(centre);
     out->frequency = (double)peak * sp.df;
     out->height = sp.scale * sqrt(best);
-    out->noise = count ? sp.scale * sqrt(sum / (double)count) : 0;
+    out->noise = isfinite(noise) ? noise : 0;
     out->snr = out->noise > 0 ? out->height / out->noise : INFINITY;
     return 0;
 }

@@ -94,8 +94,19 @@ static void clock_text(double s, char *buf, size_t n) {
     else snprintf(buf, n, "%ld:%02ld", t / 60, t % 60);
 }
 
-/* The strongest line of the shot's first acquisition, as the progress line
- * shows it: "425.8 Hz, SNR 57", or the planned frequency when there is none. */
+/* The mains the progress line looks past: the plan's analysis line_noise,
+ * else a simulated rig's own mains; 0 when neither is given. */
+static double progress_mains(const plan *p) {
+    if (p->analysis.line_noise > 0) return p->analysis.line_noise;
+    return p->rig.environment.present ? p->rig.environment.mains : 0;
+}
+
+/* The strongest line of the shot's first acquisition away from the mains,
+ * as the progress line shows it: "425.8 Hz, SNR 57"; below an SNR of
+ * PROGRESS_MIN_SNR (the highest bin of noise alone is about 3) "no line
+ * above SNR 5, 426 Hz planned"; the planned frequency alone when there are
+ * no samples to look at. */
+#define PROGRESS_MIN_SNR 5.0
 static void last_line(run_session *r, const sched_shot_result *res, const compile_timeline *t,
                       char *buf, size_t n) {
     char f[32];
@@ -106,9 +117,14 @@ static void last_line(run_session *r, const sched_shot_result *res, const compil
         double guard = fmax(10.0, 20.0 * ch->sample_rate / (double)(ch->n ? ch->n : 1));
         if (!r->quick) r->quick = an_work_new();
         if (an_quick_line(r->quick, ch->samples, ch->n, ch->sample_rate, ch->receiver_sign,
-                          guard, &line) == 0) {
-            units_format(line.frequency, UNITS_FREQUENCY, f, sizeof f);
-            snprintf(buf, n, "%s, SNR %.0f", f, line.snr);
+                          guard, progress_mains(r->c->plan), &line) == 0) {
+            if (line.snr >= PROGRESS_MIN_SNR) {
+                units_format(line.frequency, UNITS_FREQUENCY, f, sizeof f);
+                snprintf(buf, n, "%s, SNR %.0f", f, line.snr);
+                return;
+            }
+            units_format(t->frequency, UNITS_FREQUENCY, f, sizeof f);
+            snprintf(buf, n, "no line above SNR %.0f, %s planned", PROGRESS_MIN_SNR, f);
             return;
         }
     }

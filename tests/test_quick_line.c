@@ -1,0 +1,138 @@
+/* test_quick_line: the progress line's quick look at a shot (an_quick_line):
+ * the strongest line and its SNR, looking past the harmonics of the mains
+ * when it is given, so that a shot's mains pickup, often stronger than its
+ * signal, is not reported as its line. Not for the analysis's own peak
+ * picking and SNR (test_analysis.c, test_mains.c). */
+#include <stdarg.h>
+#include <stddef.h>
+#include <stdint.h>
+#include <setjmp.h>
+#include <cmocka.h>
+
+#include <gsl/gsl_randist.h>
+#include <gsl/gsl_rng.h>
+#include <math.h>
+#include <stdlib.h>
+
+#include "analysis.h"
+
+#define RATE 5000.0
+#define N 5000            /* 1 s: bins of 1 Hz */
+#define LINE 873.2        /* Hz: between the 17th and 18th harmonics of 50 Hz */
+#define T2 0.4
+#define SIGMA 0.01        /* per sample */
+#define GUARD 20.0
+
+/* A decaying line of amplitude a, a mains comb of fundamental `mains` with
+ * harmonics 1..5 of amplitude comb/k, and white noise of the given seed. */
+static float *shot(double a, double comb, double mains, unsigned long seed) {
+    float *y = malloc(N * sizeof *y);
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    assert_non_null(y);
+    assert_non_null(rng);
+    gsl_rng_set(rng, seed);
+    for (size_t i = 0; i < N; i++) {
+        double t = (double)i / RATE, v = a * cos(2 * M_PI * LINE * t + 0.3) * exp(-t / T2);
+        for (int k = 1; k <= 5; k++) v += comb / k * cos(2 * M_PI * k * mains * t + k);
+        y[i] = (float)(v + gsl_ran_gaussian_ziggurat(rng, SIGMA));
+    }
+    gsl_rng_free(rng);
+    return y;
+}
+
+static void test_without_the_mains_given_the_strongest_line_is_the_pickup(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    float *y = shot(0.3, 1.0, 50.0, 1);
+    an_line l;
+    assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 0, &l), 0);
+    assert_true(fabs(l.frequency - 50.0) <= 1.0);
+    free(y);
+    an_work_free(w);
+}
+
+static void test_with_the_mains_given_the_signal_is_found_past_its_harmonics(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    an_line l;
+    /* the comb on its nominal frequency, and a mains 0.1 % off it (a grid
+     * within its usual band) whose skirts spread into the neighbouring bins */
+    for (int off = 0; off < 2; off++) {
+        float *y = shot(0.3, 1.0, 50.0 + 0.05 * off, 2);
+        assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 50.0, &l), 0);
+        if (!(fabs(l.frequency - LINE) <= 1.0))
+            fail_msg("mains %.2f Hz: line at %.2f Hz, want %.1f", 50.0 + 0.05 * off,
+                     l.frequency, LINE);
+        assert_true(l.snr > 20);
+        free(y);
+    }
+    an_work_free(w);
+}
+
+static void test_the_mains_bins_are_not_counted_as_noise(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    float *clean = shot(0.3, 0, 50.0, 3), *picked = shot(0.3, 1.0, 50.0, 3);
+    an_line a, b;
+    assert_int_equal(an_quick_line(w, clean, N, RATE, 1, GUARD, 50.0, &a), 0);
+    assert_int_equal(an_quick_line(w, picked, N, RATE, 1, GUARD, 50.0, &b), 0);
+    /* the same noise, with and without the comb: the same SNR; counting the
+     * comb's bins as noise would lower it several times over */
+    if (!(fabs(b.snr / a.snr - 1) < 0.02)) fail_msg("SNR %.2f with the comb, %.2f without",
+                                                  b.snr, a.snr);
+    assert_true(fabs(a.frequency - b.frequency) < 1e-9);
+    free(clean);
+    free(picked);
+    an_work_free(w);
+}
+
+static void test_the_receiver_sign_does_not_move_the_line(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    float *y = shot(0.3, 1.0, 50.0, 4);
+    an_line a, b;
+    assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 50.0, &a), 0);
+    assert_int_equal(an_quick_line(w, y, N, RATE, -1, GUARD, 50.0, &b), 0);
+    assert_true(a.frequency == b.frequency);
+    assert_true(fabs(a.snr - b.snr) <= 1e-9 * a.snr);
+    free(y);
+    an_work_free(w);
+}
+
+static void test_noise_alone_stays_below_snr_5(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    an_line l;
+    for (unsigned long seed = 10; seed < 20; seed++) {
+        float *y = shot(0, 1.0, 50.0, seed);
+        assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 50.0, &l), 0);
+        if (!(l.snr < 5)) fail_msg("seed %lu: noise alone at SNR %.2f", seed, l.snr);
+        free(y);
+    }
+    an_work_free(w);
+}
+
+static void test_nothing_to_look_at_is_refused(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    float *y = shot(0.3, 0, 50.0, 5);
+    an_line l;
+    assert_int_equal(an_quick_line(w, y, 15, RATE, 1, GUARD, 0, &l), -1);
+    /* a mains of 1 Hz leaves no bin clear of its harmonics */
+    assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 1.0, &l), -1);
+    assert_int_equal(an_quick_line(NULL, y, N, RATE, 1, GUARD, 0, &l), -1);
+    free(y);
+    an_work_free(w);
+}
+
+int main(void) {
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_without_the_mains_given_the_strongest_line_is_the_pickup),
+        cmocka_unit_test(test_with_the_mains_given_the_signal_is_found_past_its_harmonics),
+        cmocka_unit_test(test_the_mains_bins_are_not_counted_as_noise),
+        cmocka_unit_test(test_the_receiver_sign_does_not_move_the_line),
+        cmocka_unit_test(test_noise_alone_stays_below_snr_5),
+        cmocka_unit_test(test_nothing_to_look_at_is_refused),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
