@@ -335,6 +335,19 @@ double an_noise_rms(const an_spectrum *s, const double *centre, const double *ex
 
 /* ---- the quick estimate of the progress line ------------------------------------ */
 
+/* mask[k] true for the bins near a harmonic h of mains: within skip plus
+ * AN_QUICK_MAINS_WANDER * h * mains of it. None when mains is 0. */
+static void mark_mains(const an_spectrum *sp, double mains, double skip, unsigned char *mask) {
+    memset(mask, 0, sp->n);
+    if (!(mains > 0)) return;
+    double top = (double)sp->n * sp->df;
+    for (double h = 1; h * mains - skip < top; h++) {
+        double e = skip + AN_QUICK_MAINS_WANDER * h * mains;
+        double lo = ceil((h * mains - e) / sp->df), hi = floor((h * mains + e) / sp->df);
+        for (double k = lo < 0 ? 0 : lo; k <= hi && k < (double)sp->n; k++) mask[(size_t)k] = 1;
+    }
+}
+
 int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int sign,
                   double guard, double mains, an_line *out) {
     an_trace tr;
@@ -344,33 +357,32 @@ int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int s
         return -1;
     /* the bins next to a mains harmonic are no candidates and no noise: as
      * far as the resolution smears it, and as far as the mains may wander */
-    double skip = fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df);
-    size_t harmonics = mains > 0 ? (size_t)fmin((double)sp.n * sp.df / mains, 1e5) : 0;
+    unsigned char *mains_bin = malloc(sp.n);
+    if (!mains_bin) return -1;
+    mark_mains(&sp, mains, fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df), mains_bin);
     double best = -1;
     size_t peak = 0;
     for (size_t k = 1; k < sp.n; k++) {
-        double f = (double)k * sp.df, h = harmonics ? round(f / mains) : 0;
-        if (h >= 1 && fabs(f - h * mains) <= skip + AN_QUICK_MAINS_WANDER * h * mains) continue;
+        if (mains_bin[k]) continue;
         double m = sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
         if (m > best) {
             best = m;
             peak = k;
         }
     }
+    double sum = 0;
+    size_t count = 0;
+    for (size_t k = 1; peak && k < sp.n; k++) {
+        double f = (double)k * sp.df;
+        if (mains_bin[k] || fabs(f - (double)peak * sp.df) <= guard || f <= guard) continue;
+        sum += sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
+        count++;
+    }
+    free(mains_bin);
     if (!peak) return -1;
-    double *centre = malloc(2 * (harmonics + 1) * sizeof *centre);
-    if (!centre) return -1;
-    double *exclude = centre + harmonics + 1;
-    centre[0] = (double)peak * sp.df;
-    exclude[0] = guard;
-    for (size_t h = 1; h <= harmonics; h++)
-        centre[h] = (double)h * mains,
-        exclude[h] = skip + AN_QUICK_MAINS_WANDER * (double)h * mains;
-    double noise = an_noise_rms(&sp, centre, exclude, harmonics + 1, guard);
-    free(centre);
     out->frequency = (double)peak * sp.df;
     out->height = sp.scale * sqrt(best);
-    out->noise = isfinite(noise) ? noise : 0;
+    out->noise = count ? sp.scale * sqrt(sum / (double)count) : 0;
     out->snr = out->noise > 0 ? out->height / out->noise : INFINITY;
     return 0;
 }
