@@ -895,6 +895,30 @@ static void test_history_follows_steps_ramps_and_pulses(void **state) {
     assert_near(sim_current_at(d, TIP, 3.0 + pu->length + 1e-6), 0, 1e-15);
 }
 
+/* Steady: no change of the current within the window. A ramp that ends
+ * where the window starts, its end rounded an ulp past it (0.1 + 0.2), has
+ * ended; one that ends a microsecond in has not. */
+static void test_history_is_steady_only_where_nothing_changes(void **state) {
+    (void)state;
+    sim_segment seg[3] = {
+        {.kind = SIM_RAMP, .start = 0.1, .length = 0.2, .from = 0, .to = 0.1},
+        {.kind = SIM_PULSE, .start = 1.0, .length = 1e-3, .peak = 1, .until = INFINITY},
+        {.kind = SIM_RAMP, .start = 2.0, .length = 0.5, .from = 0.1, .to = 0},
+    };
+    sim_history h = {0, 3, 3, seg};
+    assert_true(0.1 + 0.2 > 0.3);                        /* the rounding itself */
+    assert_true(sim_history_steady(&h, 0.3, 0.9));       /* the ramp has ended */
+    assert_false(sim_history_steady(&h, 0.3 - 1e-6, 0.9));
+    assert_false(sim_history_steady(&h, 0.2, 0.9));      /* within the ramp */
+    assert_false(sim_history_steady(&h, 0.5, 1.0005));   /* the pulse starts inside */
+    assert_false(sim_history_steady(&h, 1.0005, 1.9));   /* it is still on at the start */
+    assert_true(sim_history_steady(&h, 1.001, 1.99));    /* over before it */
+    assert_true(sim_history_steady(&h, 1.001, 2.0));     /* the ramp starts as it closes */
+    assert_false(sim_history_steady(&h, 1.001, 2.0 + 1e-6));
+    seg[1].until = 1.0005;                               /* a pulse cut short */
+    assert_true(sim_history_steady(&h, 1.0005, 1.9));
+}
+
 static void test_limits_are_checked_again_in_the_driver(void **state) {
     fixture *f = *state;
     compile_text(f, PLAN_CURIE);
@@ -1071,6 +1095,7 @@ int main(void) {
         T(test_interlock_fault_flips_the_line_from_the_first_acquisition),
         T(test_caps_say_what_the_simulated_card_does),
         T(test_history_follows_steps_ramps_and_pulses),
+        cmocka_unit_test(test_history_is_steady_only_where_nothing_changes),
         T(test_limits_are_checked_again_in_the_driver),
         T(test_real_time_samples_arrive_at_the_pace_of_a_card),
         T(test_real_time_safe_state_waits_for_the_ramps),

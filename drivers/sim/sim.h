@@ -43,7 +43,8 @@ typedef struct {
 
 /* The coil's current at time t. */
 double sim_history_current(const sim_history *h, double t);
-/* True when no segment changes the current within the open interval (a, b). */
+/* True when no segment changes the current within the open interval (a, b);
+ * a change ending within a nanosecond after a counts as ended at a. */
 bool sim_history_steady(const sim_history *h, double a, double b);
 
 /* ---- the sample (sample.c) -------------------------------------------- */
