@@ -104,20 +104,7 @@ static int write_all(int fd, const void *bytes, size_t len) {
     return 0;
 }
 
-/* name in dirfd, whole or not at all: temporary file, fsync, rename. */
-static int write_file_at(int dirfd, const char *name, const void *bytes, size_t len) {
-    char tmp[64];
-    snprintf(tmp, sizeof tmp, ".%s.tmp", name);
-    int fd = openat(dirfd, tmp, O_WRONLY | O_CREAT | O_EXCL | O_CLOEXEC, 0666);
-    if (fd < 0) return -1;
-    int rc = write_all(fd, bytes, len) != 0 || fsync(fd) != 0 ? -1 : 0;
-    int saved = errno;
-    if (close(fd) != 0 && rc == 0) rc = -1, saved = errno;
-    if (rc == 0 && renameat(dirfd, tmp, dirfd, name) != 0) rc = -1, saved = errno;
-    if (rc != 0) unlinkat(dirfd, tmp, 0);
-    errno = saved;
-    return rc;
-}
+static int write_file_at(int dirfd, const char *name, const void *bytes, size_t len);
 
 static int fsync_path(const char *path) {
     int fd = open(path, O_RDONLY | O_DIRECTORY | O_CLOEXEC);
@@ -393,6 +380,16 @@ static const char *finish_file(int dirfd, int fd, const char *tmp, const char *n
     if (!what && renameat(dirfd, tmp, dirfd, name) != 0) what = "rename";
     if (what) drop_tmp(dirfd, tmp);
     return what;
+}
+
+/* name in dirfd, whole or not at all, as a record is placed: temporary
+ * file, fsync, rename. 0, or -1 with errno. */
+static int write_file_at(int dirfd, const char *name, const void *bytes, size_t len) {
+    char tmp[64];
+    const char *what;
+    snprintf(tmp, sizeof tmp, ".%s.tmp", name);
+    int fd = start_file(dirfd, tmp, bytes, len, &what);
+    return fd < 0 || finish_file(dirfd, fd, tmp, name) ? -1 : 0;
 }
 
 /* The builder's half: r as the bytes of its file, and their sha256. */
