@@ -32,11 +32,14 @@ void clock_wait_until(sched_clock *c, double t);
 
 /* The spin is learnt from how late the clock's last CLOCK_LATE_KEPT sleeps
  * woke: their 90th percentile plus CLOCK_SPIN_PAD, at most CLOCK_SPIN_MOST;
- * 50 us before the first. clock_spin_for is that rule over n lateness
- * values (s); clock_spin the clock's spin now. */
+ * a new clock counts CLOCK_LATE_KEPT sleeps that woke CLOCK_SPIN_FIRST less
+ * the pad late, so that it spins CLOCK_SPIN_FIRST until its own sleeps are
+ * most of those kept (or one in ten of them woke later). clock_spin_for is
+ * that rule over n lateness values (s); clock_spin the clock's spin now. */
 #define CLOCK_LATE_KEPT 64
 #define CLOCK_SPIN_PAD 20e-6
 #define CLOCK_SPIN_MOST 500e-6
+#define CLOCK_SPIN_FIRST 200e-6
 double clock_spin_for(const double *late, size_t n);
 double clock_spin(const sched_clock *c);
 /* Set the calling thread's timer slack to its minimum (1 ns). */
