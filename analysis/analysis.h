@@ -33,17 +33,20 @@ typedef struct {
 /* The strongest line of n samples at rate (multiplied by sign first, the
  * record's receiver_sign), with its SNR: the line's height in the
  * unapodized spectrum over the rms of the spectrum outside +-guard Hz of it
- * and of 0 Hz. With mains > 0 (Hz) the bins near every harmonic h of mains
- * are neither the line nor noise: within AN_QUICK_MAINS_HZ or
- * AN_QUICK_MAINS_BINS bins (the wider), plus AN_QUICK_MAINS_WANDER times
- * h * mains (grids hold their frequency to about 0.2 %). A shot's mains
- * pickup, often stronger than its signal, is not what the progress line
- * should report; a line within those bins of a harmonic is missed. w keeps
- * the FFTW plan from shot to shot. Returns 0, or -1 when there are too few
- * samples or no bin is left. */
+ * and of 0 Hz. With mains > 0 (Hz) the bins near each of the first
+ * AN_QUICK_MAINS_HARMONICS harmonics h of mains (where it falls once
+ * sampled: folded about the Nyquist frequency) are neither the line nor
+ * noise: within AN_QUICK_MAINS_HZ or AN_QUICK_MAINS_BINS bins (the wider),
+ * plus AN_QUICK_MAINS_WANDER times h * mains (grids hold their frequency to
+ * about 0.2 %). A shot's mains pickup, often stronger than its signal, is
+ * not what the progress line should report; a line within those bins of a
+ * harmonic is missed. w keeps the FFTW plan from shot to shot. Returns 0,
+ * or -1 when there are too few samples or no bin is left for the line or
+ * for the noise. */
 #define AN_QUICK_MAINS_HZ 1.0
 #define AN_QUICK_MAINS_BINS 2.0
 #define AN_QUICK_MAINS_WANDER 0.002
+#define AN_QUICK_MAINS_HARMONICS 40
 typedef struct an_work an_work;
 int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int sign,
                   double guard, double mains, an_line *out);

@@ -335,15 +335,18 @@ double an_noise_rms(const an_spectrum *s, const double *centre, const double *ex
 
 /* ---- the quick estimate of the progress line ------------------------------------ */
 
-/* mask[k] true for the bins near a harmonic h of mains: within skip plus
- * AN_QUICK_MAINS_WANDER * h * mains of it. None when mains is 0. */
-static void mark_mains(const an_spectrum *sp, double mains, double skip, unsigned char *mask) {
+/* mask[k] true for the bins near harmonic h = 1 .. AN_QUICK_MAINS_HARMONICS
+ * of mains, where it falls once sampled at rate (folded about the Nyquist
+ * frequency): within skip plus AN_QUICK_MAINS_WANDER * h * mains of it.
+ * None when mains is 0. */
+static void mark_mains(const an_spectrum *sp, double rate, double mains, double skip,
+                       unsigned char *mask) {
     memset(mask, 0, sp->n);
-    if (!(mains > 0)) return;
-    double top = (double)sp->n * sp->df;
-    for (double h = 1; h * mains - skip < top; h++) {
-        double e = skip + AN_QUICK_MAINS_WANDER * h * mains;
-        double lo = ceil((h * mains - e) / sp->df), hi = floor((h * mains + e) / sp->df);
+    if (!(mains > 0) || !isfinite(mains)) return;
+    for (int h = 1; h <= AN_QUICK_MAINS_HARMONICS; h++) {
+        double f = fmod(h * mains, rate), e = skip + AN_QUICK_MAINS_WANDER * h * mains;
+        if (f > 0.5 * rate) f = rate - f;
+        double lo = ceil((f - e) / sp->df), hi = floor((f + e) / sp->df);
         for (double k = lo < 0 ? 0 : lo; k <= hi && k < (double)sp->n; k++) mask[(size_t)k] = 1;
     }
 }
@@ -359,7 +362,7 @@ int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int s
      * far as the resolution smears it, and as far as the mains may wander */
     unsigned char *mains_bin = malloc(sp.n);
     if (!mains_bin) return -1;
-    mark_mains(&sp, mains, fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df), mains_bin);
+    mark_mains(&sp, rate, mains, fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df), mains_bin);
     double best = -1;
     size_t peak = 0;
     for (size_t k = 1; k < sp.n; k++) {
@@ -379,10 +382,10 @@ int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int s
         count++;
     }
     free(mains_bin);
-    if (!peak) return -1;
+    if (!peak || !count) return -1;     /* no line, or no noise to measure it by */
     out->frequency = (double)peak * sp.df;
     out->height = sp.scale * sqrt(best);
-    out->noise = count ? sp.scale * sqrt(sum / (double)count) : 0;
+    out->noise = sp.scale * sqrt(sum / (double)count);
     out->snr = out->noise > 0 ? out->height / out->noise : INFINITY;
     return 0;
 }

@@ -183,8 +183,14 @@ static int read_analysis(plan_reader *r, plan *p, const plan_node *m) {
         diag_add(r->d, DIAG_ERROR, v->loc, "'per' and 'against' name the same variable");
         bad = 1;
     }
-    if ((v = plan_node_get(m, "line_noise")))
-        bad |= plan_read_const(r, v, "line_noise", UNITS_FREQUENCY, &p->analysis.line_noise);
+    if ((v = plan_node_get(m, "line_noise"))) {
+        int rc = plan_read_const(r, v, "line_noise", UNITS_FREQUENCY, &p->analysis.line_noise);
+        if (rc == 0 && !(p->analysis.line_noise > 0)) {
+            diag_add(r->d, DIAG_ERROR, v->loc, "'line_noise' must be greater than zero");
+            rc = -1;
+        }
+        bad |= rc;
+    }
     if ((v = plan_node_get(m, "window"))) bad |= read_window(r, p, v);
     return bad ? -1 : 0;
 }

@@ -365,6 +365,7 @@ static int read_environment(plan_reader *r, const plan_node *m, plan_rig *rig) {
     if (plan_keys(r, m, "environment", env_keys, NULL)) return -1;
     rig->environment.present = true;
     int bad = opt_const(r, m, "mains", UNITS_FREQUENCY, &rig->environment.mains, NULL) != 0;
+    if (!bad && plan_node_get(m, "mains")) bad |= positive(r, m, "mains", rig->environment.mains);
     bad |= opt_const(r, m, "mains_field", UNITS_FIELD, &rig->environment.mains_field,
                      NULL) != 0;
     bad |= opt_count(r, m, "harmonics", 0, &rig->environment.harmonics) != 0;

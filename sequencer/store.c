@@ -376,7 +376,9 @@ static int start_file(int dirfd, const char *tmp, const void *image, size_t len,
  * the temporary file removed. */
 static const char *finish_file(int dirfd, int fd, const char *tmp, const char *name) {
     const char *what = fsync(fd) != 0 ? "fsync" : NULL;
+    int saved = errno;
     if (close(fd) != 0 && !what) what = "close";
+    else if (what) errno = saved;       /* the fsync's reason, not close's */
     if (!what && renameat(dirfd, tmp, dirfd, name) != 0) what = "rename";
     if (what) drop_tmp(dirfd, tmp);
     return what;

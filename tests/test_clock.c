@@ -84,7 +84,6 @@ static void test_real_waits_learn_a_spin_and_never_return_early(void **state) {
     }
     /* every kept sleep is a measured one now: the spin is learnt from them */
     assert_true(clock_spin(c) != CLOCK_SPIN_FIRST);
-    assert_true(clock_spin(c) >= CLOCK_SPIN_PAD && clock_spin(c) <= CLOCK_SPIN_MOST);
     clock_free(c);
 }
 

@@ -58,6 +58,17 @@ static void test_refuses_angular_frequency(void **state) {
     "4:31: error: 'rate': expected a frequency (Hz), got an angular frequency (rad/s); write frequencies in Hz (cycles per second)\n");
 }
 
+static void test_refuses_a_line_noise_of_zero(void **state) {
+    (void)state;
+    expect_diags(
+    "version: 1\n"
+    "rig: bench.yaml\n"
+    "shot:\n"
+    "  - acquire: {for: 1 s, rate: 1 kHz}\n"
+    "analysis: {line_noise: 0 Hz}\n",
+    "5:24: error: 'line_noise' must be greater than zero\n");
+}
+
 static void test_refuses_bad_choice(void **state) {
     (void)state;
     expect_diags(
@@ -786,6 +797,7 @@ static void test_refuses_unreadable_plan_file(void **state) {
 int main(void) {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_refuses_angular_frequency),
+        cmocka_unit_test(test_refuses_a_line_noise_of_zero),
         cmocka_unit_test(test_refuses_bad_choice),
         cmocka_unit_test(test_refuses_bad_version),
         cmocka_unit_test(test_refuses_count_not_whole),

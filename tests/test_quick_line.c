@@ -112,14 +112,60 @@ static void test_noise_alone_stays_below_snr_5(void **state) {
     an_work_free(w);
 }
 
+/* Samples of a line at f and a mains comb at `mains` (harmonics 1..hmax),
+ * at rate, for 1 s. */
+static float *comb_shot(double rate, double f, double a, double mains, int hmax) {
+    size_t n = (size_t)rate;
+    float *y = malloc(n * sizeof *y);
+    assert_non_null(y);
+    for (size_t i = 0; i < n; i++) {
+        double t = (double)i / rate, v = a * cos(2 * M_PI * f * t) * exp(-t / T2);
+        for (int k = 1; k <= hmax; k++) v += cos(2 * M_PI * k * mains * t + k) / k;
+        y[i] = (float)v;
+    }
+    return y;
+}
+
+/* Harmonics past the Nyquist frequency are sampled as their aliases: those
+ * are left out too. 300 Hz at 2 kS/s: its 4th harmonic (1200 Hz) shows at
+ * 800 Hz, stronger than the line at 555 Hz. */
+static void test_harmonics_are_left_out_where_sampling_folds_them(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    float *y = comb_shot(2000, 555, 0.1, 300, 4);
+    an_line l;
+    assert_int_equal(an_quick_line(w, y, 2000, 2000, 1, GUARD, 300, &l), 0);
+    if (!(fabs(l.frequency - 555) <= 1)) fail_msg("line at %.1f Hz, want 555", l.frequency);
+    free(y);
+    an_work_free(w);
+}
+
+/* Only the first harmonics are left out: a line far up the spectrum, past
+ * where the widening bands of high harmonics would meet, is still seen. */
+static void test_a_line_far_above_the_low_harmonics_is_seen(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    float *y = comb_shot(100000, 20013, 0.5, 50, 5);
+    an_line l;
+    assert_int_equal(an_quick_line(w, y, 100000, 100000, 1, GUARD, 50, &l), 0);
+    if (!(fabs(l.frequency - 20013) <= 1)) fail_msg("line at %.1f Hz, want 20013", l.frequency);
+    free(y);
+    an_work_free(w);
+}
+
 static void test_nothing_to_look_at_is_refused(void **state) {
     (void)state;
     an_work *w = an_work_new();
     float *y = shot(0.3, 0, 50.0, 5);
     an_line l;
     assert_int_equal(an_quick_line(w, y, 15, RATE, 1, GUARD, 0, &l), -1);
-    /* a mains of 1 Hz leaves no bin clear of its harmonics */
-    assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 1.0, &l), -1);
+    /* 16 samples: 9 bins of 312.5 Hz, all within the guard the progress
+     * line takes (20 bins) of the line or of 0 Hz: nothing to measure the
+     * noise by, and no SNR of infinity */
+    assert_int_equal(an_quick_line(w, y, 16, RATE, 1, 20 * RATE / 16, 0, &l), -1);
+    /* 20 samples at 100 S/s: a mains of 10 Hz, its harmonics folded, leaves
+     * no bin of 5 Hz clear */
+    assert_int_equal(an_quick_line(w, y, 20, 100, 1, GUARD, 10.0, &l), -1);
     assert_int_equal(an_quick_line(NULL, y, N, RATE, 1, GUARD, 0, &l), -1);
     free(y);
     an_work_free(w);
@@ -132,6 +178,8 @@ int main(void) {
         cmocka_unit_test(test_the_mains_bins_are_not_counted_as_noise),
         cmocka_unit_test(test_the_receiver_sign_does_not_move_the_line),
         cmocka_unit_test(test_noise_alone_stays_below_snr_5),
+        cmocka_unit_test(test_harmonics_are_left_out_where_sampling_folds_them),
+        cmocka_unit_test(test_a_line_far_above_the_low_harmonics_is_seen),
         cmocka_unit_test(test_nothing_to_look_at_is_refused),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

@@ -263,6 +263,17 @@ static void test_rig_refuses_zero_radius(void **state) {
     assert_true(f->d.errors > 0);
 }
 
+static void test_rig_refuses_a_mains_of_zero(void **state) {
+    fixture *f = *state;
+    assert_int_equal(read_rig(f, "  main: {" COIL_LIMITS ", field_per_current: 1 mT/A}\n"
+                                 "environment: {mains: 0 Hz, mains_field: 1 pT}\n"),
+                     -1);
+    assert_int_equal(f->d.errors, 1);
+    assert_string_equal(f->d.items[0].message, "'mains' must be greater than zero");
+    assert_int_equal(f->d.items[0].line, 6);
+    assert_int_equal(f->d.items[0].col, 22);
+}
+
 static void test_rig_refuses_radius_that_is_not_a_length(void **state) {
     fixture *f = *state;
     assert_int_equal(read_rig(f, "  main: {" COIL_LIMITS ", turns: 10, radius: 1 mT,\n"
@@ -290,6 +301,7 @@ int main(void) {
         T(test_rig_refuses_solenoid_without_length),
         T(test_rig_refuses_geometry_without_turns),
         T(test_rig_refuses_zero_radius),
+        T(test_rig_refuses_a_mains_of_zero),
         T(test_rig_refuses_radius_that_is_not_a_length),
 #undef T
     };

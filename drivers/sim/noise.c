@@ -253,7 +253,7 @@ static void sample_trace(sim_env *e, const sim_scene *sc, const sim_signal *sig,
         e->osc[i] = (sim_osc){.per_field = fabs(sig->lines[i].gamma) * dt,
                               .step0 = 2 * M_PI * sig->lines[i].offset * dt};
     drift_walk(e, drift_rate(sc->rig) * sqrt(dt / 3600.0), a->nsamples, field);
-    sim_sample_field(sc, a->start, b);
+    sim_sample_field(sc, steady ? a->start + SIM_STEADY_SLACK : a->start, b);
     for (size_t k = 0; k < a->nsamples; k++) {
         double t = a->start + (double)k * dt;
         if (!steady) sim_sample_field(sc, t, b);

@@ -160,17 +160,15 @@ double sim_history_current(const sim_history *h, double t) {
     return i + extra;
 }
 
-/* A change that ends this close after a (s) has ended at a: a ramp that
- * ends where an acquisition starts, its end rounded a few ulps past it. */
-#define STEADY_SLACK 1e-9
-
 bool sim_history_steady(const sim_history *h, double a, double b) {
     for (size_t k = 0; k < h->n && h->seg[k].start < b; k++) {
         const sim_segment *s = &h->seg[k];
         if (s->start > a) return false;
-        double end = s->start + s->length;
-        if (s->kind == SIM_PULSE) end = fmin(end, s->until);
-        if (end > a + STEADY_SLACK && (s->kind == SIM_PULSE || s->from != s->to)) return false;
+        if (s->kind == SIM_PULSE) {
+            if (fmin(s->start + s->length, s->until) > a) return false;
+        } else if (s->from != s->to && s->start + s->length > a + SIM_STEADY_SLACK) {
+            return false;
+        }
     }
     return true;
 }

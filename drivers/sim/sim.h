@@ -44,7 +44,11 @@ typedef struct {
 /* The coil's current at time t. */
 double sim_history_current(const sim_history *h, double t);
 /* True when no segment changes the current within the open interval (a, b);
- * a change ending within a nanosecond after a counts as ended at a. */
+ * a ramp ending within SIM_STEADY_SLACK after a counts as ended at a (one
+ * that ends where an acquisition starts, its end rounded a few ulps past
+ * it): the steady current is then the one at a + SIM_STEADY_SLACK. A pulse
+ * has no slack: its current is far from its end's a nanosecond before. */
+#define SIM_STEADY_SLACK 1e-9
 bool sim_history_steady(const sim_history *h, double a, double b);
 
 /* ---- the sample (sample.c) -------------------------------------------- */
