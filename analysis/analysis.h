@@ -30,6 +30,12 @@ typedef struct {
     double snr;         /* height / noise */
 } an_line;
 
+typedef struct {
+    double guard;       /* Hz: the noise is measured this far from the line and 0 Hz */
+    double mains;       /* Hz: the mains whose harmonics are left out; 0: none */
+    double expect;      /* Hz: where a line is planned; 0: nowhere in particular */
+} an_quick_opts;
+
 /* The strongest line of n samples at rate (multiplied by sign first, the
  * record's receiver_sign), with its SNR: the line's height in the
  * unapodized spectrum over the rms of the spectrum outside +-guard Hz of it
@@ -40,7 +46,8 @@ typedef struct {
  * plus AN_QUICK_MAINS_WANDER times h * mains (grids hold their frequency to
  * about 0.2 %). A shot's mains pickup, often stronger than its signal, is
  * not what the progress line should report; a line within those bins of a
- * harmonic is missed. w keeps the FFTW plan from shot to shot. Returns 0,
+ * harmonic is missed, unless it is the harmonic near expect (the planned
+ * line's frequency), which is kept. w keeps the FFTW plan from shot to shot. Returns 0,
  * or -1 when there are too few samples or no bin is left for the line or
  * for the noise. */
 #define AN_QUICK_MAINS_HZ 1.0
@@ -49,7 +56,7 @@ typedef struct {
 #define AN_QUICK_MAINS_HARMONICS 40
 typedef struct an_work an_work;
 int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int sign,
-                  double guard, double mains, an_line *out);
+                  const an_quick_opts *o, an_line *out);
 
 /* ---- a shot record read back (record.c) -------------------------------- */
 

@@ -335,34 +335,43 @@ double an_noise_rms(const an_spectrum *s, const double *centre, const double *ex
 
 /* ---- the quick estimate of the progress line ------------------------------------ */
 
+/* f sampled at rate: where it shows, folded about the Nyquist frequency. */
+static double folded(double f, double rate) {
+    f = fmod(fabs(f), rate);
+    return f > 0.5 * rate ? rate - f : f;
+}
+
 /* mask[k] true for the bins near harmonic h = 1 .. AN_QUICK_MAINS_HARMONICS
- * of mains, where it falls once sampled at rate (folded about the Nyquist
- * frequency): within skip plus AN_QUICK_MAINS_WANDER * h * mains of it.
- * None when mains is 0. */
-static void mark_mains(const an_spectrum *sp, double rate, double mains, double skip,
-                       unsigned char *mask) {
+ * of mains, where it falls once sampled at rate: within skip plus
+ * AN_QUICK_MAINS_WANDER * h * mains of it; but not a harmonic whose band
+ * holds expect (> 0). None when mains is 0. */
+static void mark_mains(const an_spectrum *sp, double rate, double mains, double expect,
+                       double skip, unsigned char *mask) {
     memset(mask, 0, sp->n);
     if (!(mains > 0) || !isfinite(mains)) return;
+    double x = expect > 0 ? folded(expect, rate) : -1;
     for (int h = 1; h <= AN_QUICK_MAINS_HARMONICS; h++) {
-        double f = fmod(h * mains, rate), e = skip + AN_QUICK_MAINS_WANDER * h * mains;
-        if (f > 0.5 * rate) f = rate - f;
+        double f = folded(h * mains, rate), e = skip + AN_QUICK_MAINS_WANDER * h * mains;
+        if (fabs(x - f) <= e) continue;
         double lo = ceil((f - e) / sp->df), hi = floor((f + e) / sp->df);
         for (double k = lo < 0 ? 0 : lo; k <= hi && k < (double)sp->n; k++) mask[(size_t)k] = 1;
     }
 }
 
 int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int sign,
-                  double guard, double mains, an_line *out) {
+                  const an_quick_opts *o, an_line *out) {
     an_trace tr;
     an_spectrum sp;
-    if (!w || n < 16 || rate <= 0 || an_prepare(w, samples, n, rate, 0, sign, 0, 0, &tr) ||
+    if (!w || !o || n < 16 || rate <= 0 || an_prepare(w, samples, n, rate, 0, sign, 0, 0, &tr) ||
         an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, 1, &sp))
         return -1;
+    double guard = o->guard;
     /* the bins next to a mains harmonic are no candidates and no noise: as
      * far as the resolution smears it, and as far as the mains may wander */
     unsigned char *mains_bin = malloc(sp.n);
     if (!mains_bin) return -1;
-    mark_mains(&sp, rate, mains, fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df), mains_bin);
+    mark_mains(&sp, rate, o->mains, o->expect,
+               fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df), mains_bin);
     double best = -1;
     size_t peak = 0;
     for (size_t k = 1; k < sp.n; k++) {

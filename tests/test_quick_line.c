@@ -23,6 +23,13 @@
 #define SIGMA 0.01        /* per sample */
 #define GUARD 20.0
 
+/* an_quick_line with no line expected anywhere in particular. */
+static int quick(an_work *w, const float *y, size_t n, double rate, int sign, double guard,
+                 double mains, an_line *l) {
+    an_quick_opts o = {guard, mains, 0};
+    return an_quick_line(w, y, n, rate, sign, &o, l);
+}
+
 /* A decaying line of amplitude a, a mains comb of fundamental `mains` with
  * harmonics 1..5 of amplitude comb/k, and white noise of the given seed. */
 static float *shot(double a, double comb, double mains, unsigned long seed) {
@@ -45,7 +52,7 @@ static void test_without_the_mains_given_the_strongest_line_is_the_pickup(void *
     an_work *w = an_work_new();
     float *y = shot(0.3, 1.0, 50.0, 1);
     an_line l;
-    assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 0, &l), 0);
+    assert_int_equal(quick(w, y, N, RATE, 1, GUARD, 0, &l), 0);
     assert_true(fabs(l.frequency - 50.0) <= 1.0);
     free(y);
     an_work_free(w);
@@ -59,7 +66,7 @@ static void test_with_the_mains_given_the_signal_is_found_past_its_harmonics(voi
      * within its usual band) whose skirts spread into the neighbouring bins */
     for (int off = 0; off < 2; off++) {
         float *y = shot(0.3, 1.0, 50.0 + 0.05 * off, 2);
-        assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 50.0, &l), 0);
+        assert_int_equal(quick(w, y, N, RATE, 1, GUARD, 50.0, &l), 0);
         if (!(fabs(l.frequency - LINE) <= 1.0))
             fail_msg("mains %.2f Hz: line at %.2f Hz, want %.1f", 50.0 + 0.05 * off,
                      l.frequency, LINE);
@@ -74,8 +81,8 @@ static void test_the_mains_bins_are_not_counted_as_noise(void **state) {
     an_work *w = an_work_new();
     float *clean = shot(0.3, 0, 50.0, 3), *picked = shot(0.3, 1.0, 50.0, 3);
     an_line a, b;
-    assert_int_equal(an_quick_line(w, clean, N, RATE, 1, GUARD, 50.0, &a), 0);
-    assert_int_equal(an_quick_line(w, picked, N, RATE, 1, GUARD, 50.0, &b), 0);
+    assert_int_equal(quick(w, clean, N, RATE, 1, GUARD, 50.0, &a), 0);
+    assert_int_equal(quick(w, picked, N, RATE, 1, GUARD, 50.0, &b), 0);
     /* the same noise, with and without the comb: the same SNR; counting the
      * comb's bins as noise would lower it several times over */
     if (!(fabs(b.snr / a.snr - 1) < 0.02)) fail_msg("SNR %.2f with the comb, %.2f without",
@@ -91,8 +98,8 @@ static void test_the_receiver_sign_does_not_move_the_line(void **state) {
     an_work *w = an_work_new();
     float *y = shot(0.3, 1.0, 50.0, 4);
     an_line a, b;
-    assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 50.0, &a), 0);
-    assert_int_equal(an_quick_line(w, y, N, RATE, -1, GUARD, 50.0, &b), 0);
+    assert_int_equal(quick(w, y, N, RATE, 1, GUARD, 50.0, &a), 0);
+    assert_int_equal(quick(w, y, N, RATE, -1, GUARD, 50.0, &b), 0);
     assert_true(a.frequency == b.frequency);
     assert_true(fabs(a.snr - b.snr) <= 1e-9 * a.snr);
     free(y);
@@ -105,7 +112,7 @@ static void test_noise_alone_stays_below_snr_5(void **state) {
     an_line l;
     for (unsigned long seed = 10; seed < 20; seed++) {
         float *y = shot(0, 1.0, 50.0, seed);
-        assert_int_equal(an_quick_line(w, y, N, RATE, 1, GUARD, 50.0, &l), 0);
+        assert_int_equal(quick(w, y, N, RATE, 1, GUARD, 50.0, &l), 0);
         if (!(l.snr < 5)) fail_msg("seed %lu: noise alone at SNR %.2f", seed, l.snr);
         free(y);
     }
@@ -134,7 +141,7 @@ static void test_harmonics_are_left_out_where_sampling_folds_them(void **state) 
     an_work *w = an_work_new();
     float *y = comb_shot(2000, 555, 0.1, 300, 4);
     an_line l;
-    assert_int_equal(an_quick_line(w, y, 2000, 2000, 1, GUARD, 300, &l), 0);
+    assert_int_equal(quick(w, y, 2000, 2000, 1, GUARD, 300, &l), 0);
     if (!(fabs(l.frequency - 555) <= 1)) fail_msg("line at %.1f Hz, want 555", l.frequency);
     free(y);
     an_work_free(w);
@@ -147,8 +154,30 @@ static void test_a_line_far_above_the_low_harmonics_is_seen(void **state) {
     an_work *w = an_work_new();
     float *y = comb_shot(100000, 20013, 0.5, 50, 5);
     an_line l;
-    assert_int_equal(an_quick_line(w, y, 100000, 100000, 1, GUARD, 50, &l), 0);
+    assert_int_equal(quick(w, y, 100000, 100000, 1, GUARD, 50, &l), 0);
     if (!(fabs(l.frequency - 20013) <= 1)) fail_msg("line at %.1f Hz, want 20013", l.frequency);
+    free(y);
+    an_work_free(w);
+}
+
+/* A line planned within a couple of hertz of a harmonic: left out with that
+ * harmonic when nothing is expected, found when it is expected there (a
+ * field ramp passing a harmonic). 1 s at 2 kS/s, the line at 851.5 Hz, the
+ * 17th harmonic at 850 Hz. */
+static void test_the_harmonic_where_a_line_is_planned_is_kept(void **state) {
+    (void)state;
+    an_work *w = an_work_new();
+    float *y = comb_shot(2000, 851.5, 1.0, 50, 5);
+    an_line l;
+    assert_int_equal(quick(w, y, 2000, 2000, 1, GUARD, 50, &l), 0);
+    assert_true(fabs(l.frequency - 851.5) > 3);
+    an_quick_opts o = {GUARD, 50, 851.5};
+    assert_int_equal(an_quick_line(w, y, 2000, 2000, 1, &o, &l), 0);
+    if (!(fabs(l.frequency - 851.5) <= 1)) fail_msg("line at %.1f Hz, want 851.5", l.frequency);
+    /* the other harmonics are still left out */
+    o.expect = 873.0;
+    assert_int_equal(an_quick_line(w, y, 2000, 2000, 1, &o, &l), 0);
+    assert_true(fabs(l.frequency - 851.5) > 3);
     free(y);
     an_work_free(w);
 }
@@ -158,15 +187,15 @@ static void test_nothing_to_look_at_is_refused(void **state) {
     an_work *w = an_work_new();
     float *y = shot(0.3, 0, 50.0, 5);
     an_line l;
-    assert_int_equal(an_quick_line(w, y, 15, RATE, 1, GUARD, 0, &l), -1);
+    assert_int_equal(quick(w, y, 15, RATE, 1, GUARD, 0, &l), -1);
     /* 16 samples: 9 bins of 312.5 Hz, all within the guard the progress
      * line takes (20 bins) of the line or of 0 Hz: nothing to measure the
      * noise by, and no SNR of infinity */
-    assert_int_equal(an_quick_line(w, y, 16, RATE, 1, 20 * RATE / 16, 0, &l), -1);
+    assert_int_equal(quick(w, y, 16, RATE, 1, 20 * RATE / 16, 0, &l), -1);
     /* 20 samples at 100 S/s: a mains of 10 Hz, its harmonics folded, leaves
      * no bin of 5 Hz clear */
-    assert_int_equal(an_quick_line(w, y, 20, 100, 1, GUARD, 10.0, &l), -1);
-    assert_int_equal(an_quick_line(NULL, y, N, RATE, 1, GUARD, 0, &l), -1);
+    assert_int_equal(quick(w, y, 20, 100, 1, GUARD, 10.0, &l), -1);
+    assert_int_equal(quick(NULL, y, N, RATE, 1, GUARD, 0, &l), -1);
     free(y);
     an_work_free(w);
 }
@@ -180,6 +209,7 @@ int main(void) {
         cmocka_unit_test(test_noise_alone_stays_below_snr_5),
         cmocka_unit_test(test_harmonics_are_left_out_where_sampling_folds_them),
         cmocka_unit_test(test_a_line_far_above_the_low_harmonics_is_seen),
+        cmocka_unit_test(test_the_harmonic_where_a_line_is_planned_is_kept),
         cmocka_unit_test(test_nothing_to_look_at_is_refused),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

@@ -116,8 +116,9 @@ static void last_line(run_session *r, const sched_shot_result *res, const compil
         const store_channel *ch = &rec->acquisitions[0].channels[0];
         double guard = fmax(10.0, 20.0 * ch->sample_rate / (double)(ch->n ? ch->n : 1));
         if (!r->quick) r->quick = an_work_new();
-        if (an_quick_line(r->quick, ch->samples, ch->n, ch->sample_rate, ch->receiver_sign,
-                          guard, progress_mains(r->c->plan), &line) == 0) {
+        an_quick_opts o = {guard, progress_mains(r->c->plan), t->frequency};
+        if (an_quick_line(r->quick, ch->samples, ch->n, ch->sample_rate, ch->receiver_sign, &o,
+                          &line) == 0) {
             if (line.snr >= PROGRESS_MIN_SNR) {
                 units_format(line.frequency, UNITS_FREQUENCY, f, sizeof f);
                 snprintf(buf, n, "%s, SNR %.0f", f, line.snr);
