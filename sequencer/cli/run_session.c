@@ -104,7 +104,8 @@ static double progress_mains(const plan *p) {
 /* The strongest line of the shot's first acquisition away from the mains,
  * as the progress line shows it: "425.8 Hz, SNR 57"; below an SNR of
  * PROGRESS_MIN_SNR (the highest bin of noise alone is about 3) "no line
- * above SNR 5, 426 Hz planned"; the planned frequency alone when there are
+ * above SNR 5, 426 Hz planned" (without the planned frequency when it is
+ * below one bin: zero field); the planned frequency alone when there are
  * no samples to look at. */
 #define PROGRESS_MIN_SNR 5.0
 static void last_line(run_session *r, const sched_shot_result *res, const compile_timeline *t,
@@ -125,7 +126,12 @@ static void last_line(run_session *r, const sched_shot_result *res, const compil
                 return;
             }
             units_format(t->frequency, UNITS_FREQUENCY, f, sizeof f);
-            snprintf(buf, n, "no line above SNR %.0f, %s planned", PROGRESS_MIN_SNR, f);
+            /* at zero field the solved field's rounding plans a line of
+             * attohertz: below one bin of the spectrum, none is planned */
+            if (t->frequency >= ch->sample_rate / (double)ch->n)
+                snprintf(buf, n, "no line above SNR %.0f, %s planned", PROGRESS_MIN_SNR, f);
+            else
+                snprintf(buf, n, "no line above SNR %.0f", PROGRESS_MIN_SNR);
             return;
         }
     }

@@ -3,7 +3,8 @@
 # on the simulated bench, whose mains pickup (1 pT at 50 Hz and harmonics)
 # is stronger than a weakly polarized signal: each line names the signal's
 # frequency near the planned one, never a mains harmonic; a shot with no
-# line above the noise says so, with the planned frequency.
+# line above the noise says so, with the planned frequency (none at zero
+# field, where the planned one is below a bin).
 P=${PRECESS:-build/precess}
 # the simulated noise is seeded from the run id: a fixed one, a fixed noise
 export PRECESS_RUN_ID=0000c0de00000000000000000000b0b5
@@ -21,10 +22,10 @@ title: Progress past the mains
 rig: $RIG
 sample: {nuclei: [1H], model: {t1: 1 s, t2: 0.4 s, signal_per_field: 1e-9}}
 vary:
-  b: [2 uT, 3 uT]
+  b: [${2:-2 uT, 3 uT}]
 shot:
   - polarize: {coil: prepol, field: $1, for: 1 s}
-  - field: {sample: b, sensor: tune, settle: 5 ms}
+  - field: {sample: b, sensor: ${3:-tune}, settle: 5 ms}
   - pulse: {coil: tip, angle: 90 deg}
   - acquire: {for: 1 s, rate: 2 kHz}
 PLAN
@@ -51,6 +52,13 @@ plan "2 uT" > "$T/none.yaml"
 $P run "$T/none.yaml" --fast --out "$T/none" >/dev/null 2>"$T/err" || fail "none: $(cat "$T/err")"
 grep -q '^shot 1/2 attempt 1 ok .*  no line above SNR 5, 85.15 Hz planned$' "$T/err" \
     || fail "none: $(cat "$T/err")"
+# At zero field no Larmor line is planned: nothing is said to be planned.
+plan "2 uT" "0 T, 0 T" "10 nT" > "$T/zero.yaml"
+$P run "$T/zero.yaml" --fast --out "$T/zero" >/dev/null 2>"$T/err.zero" \
+    || fail "zero: $(cat "$T/err.zero")"
+grep -q '^shot 1/2 attempt 1 ok .*  no line above SNR 5$' "$T/err.zero" \
+    || fail "zero: $(cat "$T/err.zero")"
+
 # No line shown, in either run, is a mains harmonic (a multiple of 50 Hz).
 cat "$T/err.weak" "$T/err" | sed -n 's|.*  \([0-9.]*\) Hz, SNR.*|\1|p' > "$T/shown"
 /usr/bin/python3 -c "import sys
