@@ -135,7 +135,8 @@ static void last_line(run_session *r, const sched_shot_result *res, const compil
             return;
         }
     }
-    units_format(t->frequency, UNITS_FREQUENCY, f, sizeof f);
+    /* below a millihertz is zero field's rounding, not a frequency */
+    units_format(t->frequency < 1e-3 ? 0 : t->frequency, UNITS_FREQUENCY, f, sizeof f);
     snprintf(buf, n, "%s planned", f);
 }
 
