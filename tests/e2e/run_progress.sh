@@ -19,7 +19,7 @@ plan() {
     cat <<PLAN
 version: 1
 title: Progress past the mains
-rig: $RIG
+rig: ${4:-$RIG}
 sample: {nuclei: [1H], model: {t1: 1 s, t2: 0.4 s, signal_per_field: 1e-9}}
 vary:
   b: [${2:-2 uT, 3 uT}]
@@ -58,6 +58,14 @@ $P run "$T/zero.yaml" --fast --out "$T/zero" >/dev/null 2>"$T/err.zero" \
     || fail "zero: $(cat "$T/err.zero")"
 grep -q '^shot 1/2 attempt 1 ok .*  no line above SNR 5$' "$T/err.zero" \
     || fail "zero: $(cat "$T/err.zero")"
+
+# A failed attempt there shows the planned frequency as 0 Hz.
+{ cat "$RIG"; echo "faults: [{shot: 1, kind: read_error}]"; } > "$T/faulty.yaml"
+plan "2 uT" "0 T, 0 T" "10 nT" "$T/faulty.yaml" > "$T/zero-fault.yaml"
+$P run "$T/zero-fault.yaml" --fast --out "$T/zero-fault" >/dev/null 2>"$T/err.zf" \
+    || fail "zero, failed attempt: $(cat "$T/err.zf")"
+grep -q '^shot 1/2 attempt 1 failed .*  0 Hz planned: ' "$T/err.zf" \
+    || fail "zero, failed attempt: $(cat "$T/err.zf")"
 
 # No line shown, in either run, is a mains harmonic (a multiple of 50 Hz).
 cat "$T/err.weak" "$T/err" | sed -n 's|.*  \([0-9.]*\) Hz, SNR.*|\1|p' > "$T/shown"
