@@ -14,15 +14,11 @@
 #include <sys/prctl.h>
 #include <time.h>
 
-/* s spun before any sleep has been measured: generous, so that the first
- * events are on time and the first sleeps measured end before them */
-#define SPIN_FIRST CLOCK_SPIN_FIRST
-
 struct sched_clock {
     bool virtual_time;
     double now;
     double late[CLOCK_LATE_KEPT];  /* how late the last sleeps woke, s */
-    size_t nlate, next;
+    size_t next;                   /* where the next sleep's lateness goes */
     double spin;                   /* the stretch spun before a deadline, s */
 };
 
@@ -30,12 +26,13 @@ sched_clock *clock_new(bool virtual_time) {
     sched_clock *c = calloc(1, sizeof *c);
     if (c) {
         c->virtual_time = virtual_time;
-        c->spin = SPIN_FIRST;
-        /* a prior the measured sleeps replace: it holds the spin at
-         * SPIN_FIRST until they are most of the kept ones, or raises it as
-         * soon as one in ten of them wakes later */
-        for (size_t i = 0; i < CLOCK_LATE_KEPT; i++) c->late[i] = SPIN_FIRST - CLOCK_SPIN_PAD;
-        c->nlate = CLOCK_LATE_KEPT;
+        /* generous at first, so that the first events are on time and the
+         * first sleeps measured end before them: a prior the measured
+         * sleeps replace, holding the spin at CLOCK_SPIN_FIRST until they
+         * are most of the kept ones, or raising it as soon as one in ten of
+         * them wakes later */
+        c->spin = CLOCK_SPIN_FIRST;
+        for (size_t i = 0; i < CLOCK_LATE_KEPT; i++) c->late[i] = CLOCK_SPIN_FIRST - CLOCK_SPIN_PAD;
     }
     return c;
 }
@@ -52,7 +49,7 @@ static int by_value(const void *a, const void *b) {
 }
 
 double clock_spin_for(const double *late, size_t n) {
-    if (n == 0) return SPIN_FIRST;
+    if (n == 0) return CLOCK_SPIN_FIRST;
     if (n > CLOCK_LATE_KEPT) n = CLOCK_LATE_KEPT;
     double sorted[CLOCK_LATE_KEPT];
     memcpy(sorted, late, n * sizeof *sorted);
@@ -87,8 +84,7 @@ void clock_wait_until(sched_clock *c, double t) {
         /* learnt while there is still the spin's time to spare */
         c->late[c->next] = monotonic() - sleep_to;
         c->next = (c->next + 1) % CLOCK_LATE_KEPT;
-        if (c->nlate < CLOCK_LATE_KEPT) c->nlate++;
-        c->spin = clock_spin_for(c->late, c->nlate);
+        c->spin = clock_spin_for(c->late, CLOCK_LATE_KEPT);
     }
     while (monotonic() < t) {
     }
