@@ -47,30 +47,29 @@ sys.exit(0 if abs(f - $2) <= 3 and s >= 5 else 1)" \
         || fail "shot $1: '$got' (Hz, SNR), want about $2 Hz, SNR 5 or more"
 done
 
+# Runs $T/NAME.yaml; its progress lines must hold a line matching PATTERN.
+expect_line() {
+    $P run "$T/$1.yaml" --fast --out "$T/$1" >/dev/null 2>"$T/err.$1" \
+        || fail "$1: $(cat "$T/err.$1")"
+    grep -q "$2" "$T/err.$1" || fail "$1: $(cat "$T/err.$1")"
+}
+
 # Polarized only by the detection field: no line above the noise.
 plan "2 uT" > "$T/none.yaml"
-$P run "$T/none.yaml" --fast --out "$T/none" >/dev/null 2>"$T/err" || fail "none: $(cat "$T/err")"
-grep -q '^shot 1/2 attempt 1 ok .*  no line above SNR 5, 85.15 Hz planned$' "$T/err" \
-    || fail "none: $(cat "$T/err")"
+expect_line none '^shot 1/2 attempt 1 ok .*  no line above SNR 5, 85.15 Hz planned$'
 # At zero field no Larmor line is planned: nothing is said to be planned.
 plan "2 uT" "0 T, 0 T" "10 nT" > "$T/zero.yaml"
-$P run "$T/zero.yaml" --fast --out "$T/zero" >/dev/null 2>"$T/err.zero" \
-    || fail "zero: $(cat "$T/err.zero")"
-grep -q '^shot 1/2 attempt 1 ok .*  no line above SNR 5$' "$T/err.zero" \
-    || fail "zero: $(cat "$T/err.zero")"
+expect_line zero '^shot 1/2 attempt 1 ok .*  no line above SNR 5$'
 
 # A failed attempt there shows the planned frequency as 0 Hz.
 { cat "$RIG"; echo "faults: [{shot: 1, kind: read_error}]"; } > "$T/faulty.yaml"
 plan "2 uT" "0 T, 0 T" "10 nT" "$T/faulty.yaml" > "$T/zero-fault.yaml"
-$P run "$T/zero-fault.yaml" --fast --out "$T/zero-fault" >/dev/null 2>"$T/err.zf" \
-    || fail "zero, failed attempt: $(cat "$T/err.zf")"
-grep -q '^shot 1/2 attempt 1 failed .*  0 Hz planned: ' "$T/err.zf" \
-    || fail "zero, failed attempt: $(cat "$T/err.zf")"
+expect_line zero-fault '^shot 1/2 attempt 1 failed .*  0 Hz planned: '
 
 # No line shown, in either run, is a mains harmonic (a multiple of 50 Hz).
-cat "$T/err.weak" "$T/err" | sed -n 's|.*  \([0-9.]*\) Hz, SNR.*|\1|p' > "$T/shown"
+cat "$T/err.weak" "$T/err.none" | sed -n 's|.*  \([0-9.]*\) Hz, SNR.*|\1|p' > "$T/shown"
 /usr/bin/python3 -c "import sys
 for f in map(float, open('$T/shown').read().split()):
     if abs(f / 50 - round(f / 50)) * 50 <= 3: sys.exit('a mains harmonic shown: %g Hz' % f)" \
-    || fail "$(cat "$T/err.weak" "$T/err")"
+    || fail "$(cat "$T/err.weak" "$T/err.none")"
 exit 0
