@@ -897,7 +897,8 @@ static void test_history_follows_steps_ramps_and_pulses(void **state) {
 
 /* Steady: no change of the current within the window. A ramp that ends
  * where the window starts, its end rounded an ulp past it (0.1 + 0.2), has
- * ended; one that ends a microsecond in has not; a pulse gets no slack. */
+ * ended; one that ends a microsecond in has not; a pulse gets no slack but
+ * its rounding (an ulp past the window's start). */
 static void test_history_is_steady_only_where_nothing_changes(void **state) {
     (void)state;
     sim_segment seg[3] = {
@@ -914,6 +915,10 @@ static void test_history_is_steady_only_where_nothing_changes(void **state) {
     assert_false(sim_history_steady(&h, 1.0005, 1.9));   /* it is still on at the start */
     assert_true(sim_history_steady(&h, 1.0011, 1.99));   /* over before it */
     assert_false(sim_history_steady(&h, 1.001 - 0.5e-9, 1.99));  /* on half a ns more */
+    double end = 1.0 + 1e-3;                             /* the pulse's end as summed */
+    assert_true(sim_history_steady(&h, end, 1.99));      /* a window opening as it ends */
+    assert_true(sim_history_steady(&h, nextafter(end, 0), 1.99));   /* an ulp before */
+    assert_false(sim_history_steady(&h, end - 1e-12, 1.99));        /* a picosecond */
     assert_true(sim_history_steady(&h, 1.0011, 2.0));    /* the ramp starts as it closes */
     assert_false(sim_history_steady(&h, 1.0011, 2.0 + 1e-6));
     seg[1].until = 1.0005;                               /* a pulse cut short */

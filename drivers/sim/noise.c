@@ -228,16 +228,68 @@ static void drift_walk(sim_env *e, double walk, size_t n, double *drift) {
         size_t b = a + DRIFT_STRIDE < n - 1 ? a + DRIFT_STRIDE : n - 1;
         double from = drift[a], to = from;
         if (walk > 0) to += gsl_ran_gaussian_ziggurat(e->drift_rng, walk * sqrt((double)(b - a)));
-        for (size_t i = a + 1; i <= b; i++)
-            drift[i] = from + (to - from) * (double)(i - a) / (double)(b - a);
+        double slope = (to - from) / (double)(b - a);
+        for (size_t i = a + 1; i <= b; i++) drift[i] = from + slope * (double)(i - a);
         a = b;
     }
     e->drift = drift[n - 1];
 }
 
-/* The sample's field at the sensor, sample by sample, with the drift
- * walking on (e->osc has room for every line). field has a->nsamples
- * entries. The decay too is exact at every sync, a product in between. */
+/* |B| at the sample: the steady field b with the drift d along z. */
+static double field_abs(const double b[3], double d) {
+    double bz = b[2] + d;
+    return sqrt(b[0] * b[0] + b[1] * b[1] + bz * bz);
+}
+
+/* A steady scene: the field at the sample is b throughout but for the
+ * drift, a straight line between its steps (drift_walk), picotesla over a
+ * record. Each stretch between two steps precesses at its mean |B|: every
+ * line set exactly from its summed phase at the stretch's start, then
+ * turned by one fixed rotation a sample, its decay folded into the
+ * rotation (an error below 1e-6 rad against |B| sample by sample, which
+ * cost five times as much). field holds the drift on entry. */
+static void steady_trace(const sim_signal *sig, sim_osc *osc, const drv_acquisition *a,
+                         const double b[3], double *field) {
+    size_t n = a->nsamples, k0 = 0;
+    double dt = 1 / a->rate;
+    if (isnan(sig->t_end)) k0 = n;
+    while (k0 < n && a->start + (double)k0 * dt < sig->t_end) k0++;
+    bool decays = !isinf(sig->t2);
+    double per_sample = decays ? exp(-dt / sig->t2) : 1;
+    double since = a->start + (double)k0 * dt - sig->t_end;
+    for (size_t i = 0; k0 < n && i < sig->nlines; i++)
+        osc[i].phase = (fabs(sig->lines[i].gamma) * field_abs(b, field[k0]) +
+                        2 * M_PI * sig->lines[i].offset) * since;
+    for (size_t k = 0; k < k0; k++) field[k] = 0;
+    for (size_t from = k0, to; from < n; from = to) {
+        to = (from / DRIFT_STRIDE + 1) * DRIFT_STRIDE;
+        if (to > n) to = n;
+        double babs = 0.5 * (field_abs(b, field[from]) + field_abs(b, field[to - 1]));
+        double t = a->start + (double)from * dt;
+        double decay = decays ? exp(-(t - sig->t_end) / sig->t2) : 1;
+        for (size_t i = 0; i < sig->nlines; i++) {
+            sim_osc *o = &osc[i];
+            double step = o->per_field * babs + o->step0;
+            double amp = sig->lines[i].amplitude * decay;
+            double zc = amp * cos(o->phase), zs = amp * sin(o->phase);
+            double wc = per_sample * cos(step), ws = per_sample * sin(step);
+            for (size_t k = from; k < to; k++) {
+                field[k] = i == 0 ? zc : field[k] + zc;
+                double c = zc * wc - zs * ws;
+                zs = zs * wc + zc * ws;
+                zc = c;
+            }
+            o->phase += (double)(to - from) * step;
+        }
+        if (sig->nlines == 0)
+            for (size_t k = from; k < to; k++) field[k] = 0;
+    }
+}
+
+/* The sample's field at the sensor, with the drift walking on (e->osc has
+ * room for every line). field has a->nsamples entries. While a coil
+ * changes, sample by sample: the decay exact at every sync, a product in
+ * between. */
 static void sample_trace(sim_env *e, const sim_scene *sc, const sim_signal *sig,
                          const drv_acquisition *a, double *field) {
     double dt = 1 / a->rate, b[3];
@@ -253,12 +305,16 @@ static void sample_trace(sim_env *e, const sim_scene *sc, const sim_signal *sig,
         e->osc[i] = (sim_osc){.per_field = fabs(sig->lines[i].gamma) * dt,
                               .step0 = 2 * M_PI * sig->lines[i].offset * dt};
     drift_walk(e, drift_rate(sc->rig) * sqrt(dt / 3600.0), a->nsamples, field);
-    sim_sample_field(sc, steady ? a->start + SIM_STEADY_SLACK : a->start, b);
+    if (a->nsamples) e->drift_time = last;
+    if (steady) {
+        sim_sample_field(sc, a->start + SIM_STEADY_SLACK, b);
+        steady_trace(sig, e->osc, a, b, field);
+        return;
+    }
     for (size_t k = 0; k < a->nsamples; k++) {
         double t = a->start + (double)k * dt;
-        if (!steady) sim_sample_field(sc, t, b);
-        double bz = b[2] + field[k], babs = sqrt(b[0] * b[0] + b[1] * b[1] + bz * bz);
-        double s = 0;
+        sim_sample_field(sc, t, b);
+        double babs = field_abs(b, field[k]), s = 0;
         if (!isnan(sig->t_end) && t >= sig->t_end) {
             bool sync = !started || ++since_sync == SYNC;
             if (sync) {
@@ -272,7 +328,6 @@ static void sample_trace(sim_env *e, const sim_scene *sc, const sim_signal *sig,
         }
         field[k] = s;
     }
-    if (a->nsamples) e->drift_time = a->start + (double)(a->nsamples - 1) * dt;
 }
 
 /* n samples of mains from time t0 added into field: each harmonic by

@@ -7,6 +7,7 @@
 
 #include <errno.h>
 #include <fcntl.h>
+#include <float.h>
 #include <math.h>
 #include <stdarg.h>
 #include <stdio.h>
@@ -165,7 +166,8 @@ bool sim_history_steady(const sim_history *h, double a, double b) {
         const sim_segment *s = &h->seg[k];
         if (s->start > a) return false;
         if (s->kind == SIM_PULSE) {
-            if (fmin(s->start + s->length, s->until) > a) return false;
+            double end = fmin(s->start + s->length, s->until);
+            if (end - a > SIM_ROUNDING * DBL_EPSILON * fmax(1, fabs(a))) return false;
         } else if (s->from != s->to && s->start + s->length > a + SIM_STEADY_SLACK) {
             return false;
         }

@@ -47,8 +47,12 @@ double sim_history_current(const sim_history *h, double t);
  * a ramp ending within SIM_STEADY_SLACK after a counts as ended at a (one
  * that ends where an acquisition starts, its end rounded a few ulps past
  * it): the steady current is then the one at a + SIM_STEADY_SLACK. A pulse
- * has no slack: its current is far from its end's a nanosecond before. */
+ * has no such slack (its current is far from its end's a nanosecond before),
+ * only its rounding: one ending within SIM_ROUNDING ulps of a's magnitude
+ * after a has ended at a (an acquisition that starts as the last pulse
+ * ends, the two ends summed in different orders). */
 #define SIM_STEADY_SLACK 1e-9
+#define SIM_ROUNDING 16
 bool sim_history_steady(const sim_history *h, double a, double b);
 
 /* ---- the sample (sample.c) -------------------------------------------- */
