@@ -1,6 +1,8 @@
 /* journal: the run's append-only journal.jsonl, one JSON object a line with
  * "event" and "time" first, each line fsync'd before the call returns and
- * taken back whole if it could not be written; safe from any thread.
+ * taken back whole if it could not be written (several lines appended
+ * together: one write, one fsync, all of them or none); safe from any
+ * thread.
  * Not for deciding what a line says (store.c writes the shot lines, the CLI
  * the start, resume and stop lines) nor for reading a journal back. */
 #include "store.h"
@@ -64,8 +66,8 @@ static int write_all(int fd, const char *p, size_t len) {
     return 0;
 }
 
-/* Appends text and fsyncs; on failure cuts the file back to where it was,
- * so a reader never meets half a line. */
+/* Appends text (whole lines) and fsyncs; on failure cuts the file back to
+ * where it was, so a reader never meets half a line. */
 static int append_line(int fd, const char *text, size_t len, char *err, size_t errlen) {
     struct stat st;
     if (fstat(fd, &st) != 0) {
@@ -80,12 +82,15 @@ static int append_line(int fd, const char *text, size_t len, char *err, size_t e
     return -1;
 }
 
-int journal_append(store *s, const char *event, void *object, char *err, size_t errlen) {
-    json_t *given = object;
+/* object's line as text ending in a newline (malloc'd), *len its length;
+ * NULL when it is no object or out of memory (err says which). The object
+ * is consumed. */
+static char *line_text(const char *event, json_t *given, size_t *len, char *err,
+                       size_t errlen) {
     if (given && !json_is_object(given)) {
         json_decref(given);
         snprintf(err, errlen, "journal line '%s' is not a JSON object", event);
-        return -1;
+        return NULL;
     }
     json_t *line = ordered_line(event, given);
     json_decref(given);
@@ -93,13 +98,43 @@ int journal_append(store *s, const char *event, void *object, char *err, size_t 
     json_decref(line);
     if (!text) {
         snprintf(err, errlen, "cannot build journal line '%s': out of memory", event);
-        return -1;
+        return NULL;
     }
-    size_t len = strlen(text);
-    text[len] = '\n';           /* replaces the NUL; json_dumps left room for it */
-    int fd = store_journal_lock(s);
-    int rc = append_line(fd, text, len + 1, err, errlen);
-    store_journal_unlock(s);
-    free(text);
+    *len = strlen(text);
+    text[(*len)++] = '\n';      /* replaces the NUL; json_dumps left room for it */
+    return text;
+}
+
+int journal_append(store *s, const char *event, void *object, char *err, size_t errlen) {
+    return journal_append_lines(s, event, &object, 1, err, errlen);
+}
+
+int journal_append_lines(store *s, const char *event, void **objects, size_t n, char *err,
+                         size_t errlen) {
+    char *all = NULL;
+    size_t len = 0;
+    int rc = 0;
+    for (size_t i = 0; i < n; i++) {
+        size_t one = 0;
+        char *text = rc == 0 ? line_text(event, objects[i], &one, err, errlen) : NULL;
+        if (rc != 0) json_decref(objects[i]);
+        char *grown = text ? realloc(all, len + one) : NULL;
+        if (text && !grown) snprintf(err, errlen, "cannot build journal line '%s': out of memory",
+                                     event);
+        if (grown) {
+            memcpy(grown + len, text, one);
+            all = grown;
+            len += one;
+        } else {
+            rc = -1;
+        }
+        free(text);
+    }
+    if (rc == 0 && len > 0) {
+        int fd = store_journal_lock(s);
+        rc = append_line(fd, all, len, err, errlen);
+        store_journal_unlock(s);
+    }
+    free(all);
     return rc;
 }

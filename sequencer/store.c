@@ -22,6 +22,9 @@
 #include <unistd.h>
 
 #define STAGE_DEPTH 4          /* built images waiting for the committer */
+/* Records committed together when the next is already being built: their
+ * folder fsync'd once and their journal lines written at once. */
+#define GROUP 4
 /* Record builders: the CPU a record takes, HDF5's share one at a time, the
  * compression side by side (one builder alone was the run's slowest stage). */
 #define BUILDERS 2
@@ -47,6 +50,7 @@ struct store {
     struct built_record *stage[STAGE_DEPTH];    /* NULL in a filled slot: dropped */
     bool filled[STAGE_DEPTH];
     uint64_t tickets, stage_base;   /* the next ticket given; the next to commit */
+    size_t awaited;                 /* the slot after the base the committer waits for */
     size_t inflight;                /* taken from queue, not yet committed */
     int builders;                   /* builder threads still running (0: all built) */
     bool started, stopping, failed;
@@ -323,8 +327,10 @@ static json_t *json_text(const char *s) {
     return j;
 }
 
-static int journal_shot(store *s, const store_record *r, bool failed, const char *file,
-                        const char *sha, char *err, size_t errlen) {
+/* A shot's journal line as an object (without event and time), or NULL
+ * out of memory. */
+static json_t *shot_line(const store_record *r, bool failed, const char *file,
+                         const char *sha) {
     json_t *o = json_pack("{s:I,s:I,s:I,s:I,s:o,s:s}", "shot", (json_int_t)r->shot, "attempt",
                           (json_int_t)r->attempt, "point", (json_int_t)r->point, "average",
                           (json_int_t)r->average, "kind", json_text(r->kind), "status",
@@ -338,10 +344,9 @@ static int journal_shot(store *s, const store_record *r, bool failed, const char
                                  json_text(r->error && *r->error ? r->error : "failed"));
     if (rc != 0) {
         json_decref(o);
-        snprintf(err, errlen, "journal line: out of memory");
-        return -1;
+        return NULL;
     }
-    return journal_append(s, "shot", o, err, errlen);
+    return o;
 }
 
 /* tmp in dirfd removed, errno as it was (it says why tmp is not kept). */
@@ -421,9 +426,11 @@ static int folder_of(const store *s, const built_record *b) {
 
 /* The committer's half, for the n images the stage held: each into place
  * (fsync'd, renamed), each folder that took one fsync'd once, then their
- * journal lines in order, each fsync'd. A failure stops there: the images
- * placed before it are still made durable and journalled. Returns how many
- * were journalled; fewer than n means err says why the next one was not. */
+ * journal lines in order, in one write and one fsync. A failure to place
+ * one stops there: the images placed before it are still made durable and
+ * journalled. Returns how many were journalled; fewer than n means err
+ * says why the next one was not (the first, when the journal itself
+ * failed: then none of the batch is journalled). */
 
 static size_t commit_batch(store *s, built_record *const *b, size_t n, char *err,
                            size_t errlen) {
@@ -463,12 +470,20 @@ static size_t commit_batch(store *s, built_record *const *b, size_t n, char *err
                  b[0]->rel, strerror(errno));
         return 0;
     }
-    for (size_t i = 0; i < placed; i++)
-        if (journal_shot(s, b[i]->r, b[i]->failed, b[i]->rel, b[i]->sha, why, sizeof why) != 0) {
-            snprintf(err, errlen, "record %s written but not journalled (%s)", b[i]->rel, why);
-            return i;
-        }
-    return placed;
+    /* their lines in one write and one fsync: all journalled, or none */
+    void *lines[STAGE_DEPTH];
+    size_t made = 0;
+    while (made < placed &&
+           (lines[made] = shot_line(b[made]->r, b[made]->failed, b[made]->rel, b[made]->sha)))
+        made++;
+    if (made < placed)
+        snprintf(err, errlen, "record %s written but not journalled (journal line: out of "
+                 "memory)", b[made]->rel);
+    if (made && journal_append_lines(s, "shot", lines, made, why, sizeof why) != 0) {
+        snprintf(err, errlen, "record %s written but not journalled (%s)", b[0]->rel, why);
+        return 0;
+    }
+    return made;
 }
 
 static void built_free(built_record *b) {
@@ -498,7 +513,14 @@ static void place_built(store *s, uint64_t ticket, built_record *b) {
     while (ticket >= s->stage_base + STAGE_DEPTH) pthread_cond_wait(&s->built_room, &s->lock);
     s->stage[ticket % STAGE_DEPTH] = b;
     s->filled[ticket % STAGE_DEPTH] = true;
-    if (ticket == s->stage_base) pthread_cond_signal(&s->built);  /* what the committer awaits */
+    if (ticket == s->stage_base + s->awaited) pthread_cond_signal(&s->built);
+}
+
+/* With s->lock held: how many slots from the stage's base are filled. */
+static size_t filled_run(const store *s) {
+    size_t n = 0;
+    while (n < STAGE_DEPTH && s->filled[(s->stage_base + n) % STAGE_DEPTH]) n++;
+    return n;
 }
 
 /* A builder: records from the queue to file images on the stage. A record
@@ -562,6 +584,14 @@ static void *committer_main(void *arg) {
         while (!s->filled[s->stage_base % STAGE_DEPTH] && s->builders > 0)
             pthread_cond_wait(&s->built, &s->lock);
         if (!s->filled[s->stage_base % STAGE_DEPTH]) break;    /* all built, all taken */
+        /* The next record is being built: wait for it, and one folder fsync
+         * and one journal write serve both. Never a wait for a shot still
+         * to be taken: in real time each record is alone, at once. */
+        for (size_t run; (run = filled_run(s)) < GROUP && s->inflight > run && s->builders > 0;) {
+            s->awaited = run;
+            pthread_cond_wait(&s->built, &s->lock);
+        }
+        s->awaited = 0;
         size_t n = 0;
         for (size_t i = 0; i < STAGE_DEPTH && s->filled[s->stage_base % STAGE_DEPTH]; i++) {
             size_t slot = s->stage_base++ % STAGE_DEPTH;

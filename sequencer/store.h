@@ -117,6 +117,10 @@ const char *store_dir(const store *s);
  * out of this header) with "event" and "time" put first, fsync'd. Safe from
  * any thread. The object is consumed. */
 int journal_append(store *s, const char *event, void *object, char *err, size_t errlen);
+/* n such lines of one event in one write and one fsync: all of them or, on
+ * failure, none. Every object is consumed. */
+int journal_append_lines(store *s, const char *event, void **objects, size_t n, char *err,
+                         size_t errlen);
 /* The current time as ISO 8601 UTC with microseconds. */
 void journal_time_now(char *buf, size_t n);
 

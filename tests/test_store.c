@@ -407,6 +407,49 @@ static void test_journal_line_taken_back_whole_when_it_cannot_be_written(void **
     remove_scratch(dir);
 }
 
+/* Several lines at once (a batch of shots): all of them, in order, or none:
+ * one that is no object, or a disk with room for only the first, leaves
+ * the journal as it was. */
+static void test_journal_lines_appended_together_are_all_or_none(void **state) {
+    (void)state;
+    char dir[128], path[160], err[256] = "";
+    scratch_run(dir, "journal");
+    store *s = create_run(dir);
+    void *three[3] = {json_pack("{s:i}", "shot", 1), json_pack("{s:i}", "shot", 2),
+                      json_pack("{s:i}", "shot", 3)};
+    assert_int_equal(journal_append_lines(s, "shot", three, 3, err, sizeof err), 0);
+    snprintf(path, sizeof path, "%s/journal.jsonl", dir);
+    struct stat before, after;
+    assert_int_equal(stat(path, &before), 0);
+    void *bad[3] = {json_pack("{s:i}", "shot", 4), json_integer(5), json_pack("{s:i}", "shot", 6)};
+    assert_int_equal(journal_append_lines(s, "shot", bad, 3, err, sizeof err), -1);
+    assert_non_null(strstr(err, "not a JSON object"));
+    assert_int_equal(stat(path, &after), 0);
+    assert_int_equal(after.st_size, before.st_size);
+    struct rlimit old, small;
+    getrlimit(RLIMIT_FSIZE, &old);
+    small = old;
+    small.rlim_cur = (rlim_t)before.st_size + 80;      /* one line's room, not two */
+    signal(SIGXFSZ, SIG_IGN);
+    assert_int_equal(setrlimit(RLIMIT_FSIZE, &small), 0);
+    void *two[2] = {json_pack("{s:i}", "shot", 7), json_pack("{s:i}", "shot", 8)};
+    int rc = journal_append_lines(s, "shot", two, 2, err, sizeof err);
+    setrlimit(RLIMIT_FSIZE, &old);
+    assert_int_equal(rc, -1);
+    assert_int_equal(stat(path, &after), 0);
+    assert_int_equal(after.st_size, before.st_size);
+    assert_int_equal(store_close(s, err, sizeof err), 0);
+    size_t n;
+    json_t **lines = journal_lines(dir, &n);
+    assert_int_equal(n, 3);
+    for (size_t i = 0; i < n; i++) {
+        assert_string_equal(json_string_value(json_object_get(lines[i], "event")), "shot");
+        assert_int_equal(json_integer_value(json_object_get(lines[i], "shot")), (json_int_t)i + 1);
+    }
+    free_lines(lines, n);
+    remove_scratch(dir);
+}
+
 /* ---- the run folder ----------------------------------------------------------- */
 
 static void test_create_refuses_an_existing_folder(void **state) {
@@ -819,6 +862,7 @@ int main(void) {
         cmocka_unit_test(test_time_is_iso8601_utc_with_microseconds),
         cmocka_unit_test(test_journal_lines_stay_whole_from_two_threads),
         cmocka_unit_test(test_journal_line_taken_back_whole_when_it_cannot_be_written),
+        cmocka_unit_test(test_journal_lines_appended_together_are_all_or_none),
         cmocka_unit_test(test_create_refuses_an_existing_folder),
         cmocka_unit_test(test_create_failing_midway_leaves_no_folder),
         cmocka_unit_test(test_run_of_three_ok_and_one_failed_through_a_queue_of_one),
