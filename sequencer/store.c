@@ -21,14 +21,17 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
-#define STAGE_DEPTH 4          /* built images waiting for the committer */
+/* Built images waiting for the committer: room for a group being gathered
+ * while both builders go on. */
+#define STAGE_DEPTH 8
 /* Records committed together when the next is already being built: their
  * folder fsync'd once and their journal lines written at once. */
 #define GROUP 4
 /* Record builders: the CPU a record takes, HDF5's share one at a time, the
  * compression side by side (one builder alone was the run's slowest stage). */
 #define BUILDERS 2
-/* How far the record builder sits below the run's own priority (nice). */
+/* How far the record builders sit below the run's own priority (nice),
+ * unless the writer goes first (store_writer_first). */
 #define BUILD_NICE 10
 
 struct store {
@@ -53,6 +56,8 @@ struct store {
     size_t awaited;                 /* the slot after the base the committer waits for */
     size_t inflight;                /* taken from queue, not yet committed */
     int builders;                   /* builder threads still running (0: all built) */
+    int build_nice;                 /* how far they sit below the caller: BUILD_NICE, or 0
+                                     * (then the caller goes down once they are made) */
     bool started, stopping, failed;
     size_t ok, nfailed, lost;       /* lost: dropped after the writer failed */
     char error[640];
@@ -154,6 +159,7 @@ static store *store_alloc(const char *dir) {
     store *s = calloc(1, sizeof *s);
     if (!s) return NULL;
     s->dirfd = s->recordsfd = s->failedfd = s->journalfd = -1;
+    s->build_nice = BUILD_NICE;
     s->dir = strdup(dir);
     if (!s->dir || pthread_mutex_init(&s->journal_lock, NULL) != 0) {
         free(s->dir);
@@ -505,7 +511,7 @@ static void lower_priority(int by) {
     (void)setpriority(PRIO_PROCESS, (id_t)gettid(), now + by > 19 ? 19 : now + by);
 }
 
-void store_yield_to_writer(void) { lower_priority(BUILD_NICE); }
+void store_writer_first(store *s) { s->build_nice = 0; }
 
 /* With s->lock held: the ticket's slot on the stage, once the committer
  * has room for it, filled with b (NULL: the record was dropped). */
@@ -529,8 +535,11 @@ static void *builder_main(void *arg) {
     store *s = arg;
     /* Building is CPU work nothing waits on at once: niced, it leaves a core
      * to the scheduler's thread and to the committer the moment either needs
-     * one (the committer to start the next write as soon as the disk answers). */
-    lower_priority(BUILD_NICE);
+     * one (the committer to start the next write as soon as the disk answers).
+     * When the writer goes first, the scheduler's thread is the niced one:
+     * HDF5 goes one builder at a time, and a builder holding it is the last
+     * thread to keep from a core. */
+    lower_priority(s->build_nice);
     pthread_setname_np(pthread_self(), "precess-build");    /* named once it is niced */
     record_imager *w = record_imager_new();     /* NULL: each record fails for memory */
     pthread_mutex_lock(&s->lock);
@@ -674,6 +683,7 @@ int store_start(store *s, size_t capacity, char *err, size_t errlen) {
         return -1;
     }
     s->started = true;
+    if (s->build_nice == 0) lower_priority(BUILD_NICE);    /* once the writer has its own */
     return 0;
 }
 

@@ -85,15 +85,17 @@ typedef struct {
  * written and fsync'd. Returns 0 and *out, or -1 with err. */
 int store_create(const char *dir, const store_files *files, store **out, char *err,
                  size_t errlen);
-/* Start the writer with a queue of capacity records: two threads, the
- * builder ("precess-build", niced 10 below the caller: CPU work that nothing
- * waits on at once) and the committer ("precess-commit", at the caller's
- * priority: it waits on the disk and starts the next write when it answers). */
+/* Start the writer with a queue of capacity records: three threads, two
+ * builders ("precess-build", niced 10 below the caller: CPU work that
+ * nothing waits on at once) and the committer ("precess-commit", at the
+ * caller's priority: it waits on the disk and starts the next write when it
+ * answers). */
 int store_start(store *s, size_t capacity, char *err, size_t errlen);
-/* Lower the calling thread to the builder's priority: for a thread whose
- * pace the disk sets anyway (the scheduler under run --fast), so that the
- * committer is never kept from the disk by it. */
-void store_yield_to_writer(void);
+/* Before store_start: the writer goes first. The thread that starts it goes
+ * down 10 instead of the builders (once store_start has made them at its
+ * priority): for a thread whose pace the writer sets anyway (the scheduler
+ * under run --fast). */
+void store_writer_first(store *s);
 /* Hand a record to the writer (it takes ownership). When the queue is full
  * it returns 1 at once without taking it unless wait is true, in which case
  * it waits for room. Returns 0 when queued, -1 when the writer has failed

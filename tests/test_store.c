@@ -634,17 +634,38 @@ static int nice_of_threads(const char *name, int *count) {
     return nice;
 }
 
-static void *yield_and_read(void *arg) {
-    int *out = arg;
-    errno = 0;
-    out[0] = getpriority(PRIO_PROCESS, (id_t)gettid());
-    store_yield_to_writer();
-    out[1] = getpriority(PRIO_PROCESS, (id_t)gettid());
+/* The nice values of the builders and the committer once all three have
+ * named themselves. */
+static void writer_nice(int *build, int *commit) {
+    int builders = 0, committers = 0;
+    for (int i = 0; i < 200 && (builders < 2 || committers < 1); i++) {
+        *build = nice_of_threads("precess-build", &builders);  /* named by themselves */
+        *commit = nice_of_threads("precess-commit", &committers);
+        if (builders < 2 || committers < 1) usleep(5000);
+    }
+    assert_int_equal(builders, 2);
+    assert_int_equal(committers, 1);
+}
+
+/* A writer that goes first, started from a thread of its own: that thread
+ * 10 down, the builders and the committer at its former priority. */
+typedef struct {
+    store *s;
+    int started, before, after;
+} first_writer;
+
+static void *start_writer_first(void *arg) {     /* no cmocka here: not its thread */
+    first_writer *f = arg;
+    char err[512] = "";
+    f->before = getpriority(PRIO_PROCESS, (id_t)gettid());
+    store_writer_first(f->s);
+    f->started = store_start(f->s, 1, err, sizeof err);
+    f->after = getpriority(PRIO_PROCESS, (id_t)gettid());
     return NULL;
 }
 
 /* The builders (two) run 10 below the caller's priority, the committer at
- * it; a thread that yields to the writer goes down to the builders'. */
+ * it; when the writer goes first, the caller goes down 10 instead. */
 static void test_builder_yields_the_cpu_and_committer_keeps_it(void **state) {
     (void)state;
     char dir[128], err[512] = "";
@@ -652,24 +673,26 @@ static void test_builder_yields_the_cpu_and_committer_keeps_it(void **state) {
     store *s = create_run(dir);
     int mine = getpriority(PRIO_PROCESS, (id_t)gettid());
     assert_int_equal(store_start(s, 1, err, sizeof err), 0);
-    int build = -100, commit = -100, builders = 0, committers = 0;
-    for (int i = 0; i < 200 && (builders < 2 || committers < 1); i++) {
-        build = nice_of_threads("precess-build", &builders);  /* named by themselves */
-        commit = nice_of_threads("precess-commit", &committers);
-        if (builders < 2 || committers < 1) usleep(5000);
-    }
-    assert_int_equal(builders, 2);
-    assert_int_equal(committers, 1);
+    int build = -100, commit = -100;
+    writer_nice(&build, &commit);
     assert_int_equal(commit, mine);
     assert_int_equal(build, mine + 10 > 19 ? 19 : mine + 10);
+    assert_int_equal(getpriority(PRIO_PROCESS, (id_t)gettid()), mine);
     if (store_close(s, err, sizeof err) != 0) fail_msg("store_close: %s", err);
     remove_scratch(dir);
-    int before_after[2];
+    scratch_run(dir, "nice-first");
+    first_writer f = {create_run(dir), -1, -100, -100};
     pthread_t t;
-    assert_int_equal(pthread_create(&t, NULL, yield_and_read, before_after), 0);
+    assert_int_equal(pthread_create(&t, NULL, start_writer_first, &f), 0);
     pthread_join(t, NULL);
-    assert_int_equal(before_after[1], before_after[0] + 10 > 19 ? 19 : before_after[0] + 10);
+    assert_int_equal(f.started, 0);
+    writer_nice(&build, &commit);
+    if (store_close(f.s, err, sizeof err) != 0) fail_msg("store_close: %s", err);
+    assert_int_equal(build, f.before);
+    assert_int_equal(commit, f.before);
+    assert_int_equal(f.after, f.before + 10 > 19 ? 19 : f.before + 10);
     assert_int_equal(getpriority(PRIO_PROCESS, (id_t)gettid()), mine);   /* only that thread */
+    remove_scratch(dir);
 }
 
 /* A record with one thing wrong, submitted: refused (and freed by the

@@ -212,10 +212,10 @@ static int open_folder(run_session *r) {
     store_files files = {p->bytes, rig, p->nbytes, rig_len, points};
     int rc = points ? store_create(r->dir, &files, &r->st, err, sizeof err) : -1;
     free(points);
+    /* In simulated time nothing waits for a deadline: the writer sets the
+     * pace, and gets a core first. */
+    if (rc == 0 && r->fast) store_writer_first(r->st);
     if (rc == 0) rc = store_start(r->st, 16, err, sizeof err);
-    /* In simulated time nothing waits for a deadline: the disk sets the pace,
-     * and the committer gets a core first. */
-    if (rc == 0 && r->fast) store_yield_to_writer();
     if (rc) fprintf(stderr, "precess run: %s: %s\n", r->dir, points ? err : "out of memory");
     return rc;
 }
