@@ -95,11 +95,15 @@ int an_prepare(an_work *w, const float *samples, size_t n, double rate, double t
     if (i1 < i0 + 16) return -1;
     size_t m = i1 - i0;
     if (reserve(&w->y, &w->ycap, m)) return -1;
-    double mean = 0;
-    for (size_t i = i0; i < i1; i++) mean += samples[i];
-    mean /= (double)m;
+    /* four sums side by side: one alone waits on each addition */
+    double part[4] = {0, 0, 0, 0};
+    size_t i = i0;
+    for (; i + 4 <= i1; i += 4)
+        for (int j = 0; j < 4; j++) part[j] += samples[i + (size_t)j];
+    for (; i < i1; i++) part[0] += samples[i];
+    double mean = ((part[0] + part[1]) + (part[2] + part[3])) / (double)m;
     double s = sign < 0 ? -1.0 : 1.0;
-    for (size_t i = 0; i < m; i++) w->y[i] = s * ((double)samples[i0 + i] - mean);
+    for (i = 0; i < m; i++) w->y[i] = s * ((double)samples[i0 + i] - mean);
     *out = (an_trace){w->y, m, rate, t0 + (double)i0 / rate, mean};
     return 0;
 }
@@ -341,20 +345,36 @@ static double folded(double f, double rate) {
     return f > 0.5 * rate ? rate - f : f;
 }
 
-/* mask[k] true for the bins near harmonic h = 1 .. AN_QUICK_MAINS_HARMONICS
- * of mains, where it falls once sampled at rate: within skip plus
- * AN_QUICK_MAINS_WANDER * h * mains of it; but not a harmonic whose band
- * holds expect (> 0). None when mains is 0. */
+/* power[k] set to -1 (no candidate, no noise) for the bins near harmonic
+ * h = 1 .. AN_QUICK_MAINS_HARMONICS of mains, where it falls once sampled
+ * at rate: within skip plus AN_QUICK_MAINS_WANDER * h * mains of it; but
+ * not a harmonic whose band holds expect (> 0). None when mains is 0. */
 static void mark_mains(const an_spectrum *sp, double rate, double mains, double expect,
-                       double skip, unsigned char *mask) {
-    memset(mask, 0, sp->n);
+                       double skip, double *power) {
     if (!(mains > 0) || !isfinite(mains)) return;
     double x = expect > 0 ? folded(expect, rate) : -1;
     for (int h = 1; h <= AN_QUICK_MAINS_HARMONICS; h++) {
         double f = folded(h * mains, rate), e = skip + AN_QUICK_MAINS_WANDER * h * mains;
         if (fabs(x - f) <= e) continue;
         double lo = ceil((f - e) / sp->df), hi = floor((f + e) / sp->df);
-        for (double k = lo < 0 ? 0 : lo; k <= hi && k < (double)sp->n; k++) mask[(size_t)k] = 1;
+        for (double k = lo < 0 ? 0 : lo; k <= hi && k < (double)sp->n; k++) power[(size_t)k] = -1;
+    }
+}
+
+/* Into sum[0..3] and *count: power[k] >= 0 for k in [from, to), four sums
+ * side by side (one alone waits on each addition). */
+static void kept_power(const double *power, size_t from, size_t to, double sum[4],
+                       size_t *count) {
+    size_t k = from;
+    for (; k + 4 <= to; k += 4)
+        for (int j = 0; j < 4; j++) {
+            double p = power[k + (size_t)j];
+            sum[j] += p >= 0 ? p : 0;
+            *count += p >= 0;
+        }
+    for (; k < to; k++) {
+        sum[0] += power[k] >= 0 ? power[k] : 0;
+        *count += power[k] >= 0;
     }
 }
 
@@ -366,32 +386,36 @@ int an_quick_line(an_work *w, const float *samples, size_t n, double rate, int s
         an_spectrum_of(w, tr.y, tr.n, tr.rate, 0, 1, &sp))
         return -1;
     double guard = o->guard;
+    double *power = an_work_scratch(w, sp.n);
+    if (!power) return -1;
+    for (size_t k = 0; k < sp.n; k++) power[k] = sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
     /* the bins next to a mains harmonic are no candidates and no noise: as
      * far as the resolution smears it, and as far as the mains may wander */
-    unsigned char *mains_bin = malloc(sp.n);
-    if (!mains_bin) return -1;
     mark_mains(&sp, rate, o->mains, o->expect,
-               fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df), mains_bin);
+               fmax(AN_QUICK_MAINS_HZ, AN_QUICK_MAINS_BINS * sp.df), power);
     double best = -1;
     size_t peak = 0;
-    for (size_t k = 1; k < sp.n; k++) {
-        if (mains_bin[k]) continue;
-        double m = sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
-        if (m > best) {
-            best = m;
+    for (size_t k = 1; k < sp.n; k++)
+        if (power[k] > best) {
+            best = power[k];
             peak = k;
         }
-    }
-    double sum = 0;
+    if (!peak) return -1;       /* no line */
+    /* the noise: every kept bin above guard and farther than guard from the
+     * line, i.e. [lo, a) and [b, n) */
+    double fp = (double)peak * sp.df;
+    size_t lo = 1, a = peak, b = guard >= 0 ? peak + 1 : peak;
+    while (lo < sp.n && (double)lo * sp.df <= guard) lo++;
+    while (a > lo && fabs((double)(a - 1) * sp.df - fp) <= guard) a--;
+    while (b < sp.n && fabs((double)b * sp.df - fp) <= guard) b++;
+    if (a < lo) a = lo;
+    if (b < lo) b = lo;
+    double part[4] = {0, 0, 0, 0};
     size_t count = 0;
-    for (size_t k = 1; peak && k < sp.n; k++) {
-        double f = (double)k * sp.df;
-        if (mains_bin[k] || fabs(f - (double)peak * sp.df) <= guard || f <= guard) continue;
-        sum += sp.re[k] * sp.re[k] + sp.im[k] * sp.im[k];
-        count++;
-    }
-    free(mains_bin);
-    if (!peak || !count) return -1;     /* no line, or no noise to measure it by */
+    kept_power(power, lo, a, part, &count);
+    kept_power(power, b, sp.n, part, &count);
+    if (!count) return -1;      /* no noise to measure it by */
+    double sum = (part[0] + part[1]) + (part[2] + part[3]);
     out->frequency = (double)peak * sp.df;
     out->height = sp.scale * sqrt(best);
     out->noise = sp.scale * sqrt(sum / (double)count);
