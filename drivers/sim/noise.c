@@ -105,17 +105,31 @@ double sim_volts_per_count(const rig_input *in) {
 typedef struct {
     const rig_input *in;
     double step, top, per_volt, per_step;   /* V per code, top code, 1/field_per_volt, 1/step */
+    double lo, hi, fpv;                     /* the input's range and field_per_volt */
+    bool quick;     /* 1 to 30 bits, a reciprocal: every code an int, no branch a sample */
 } adc;
 
 static adc adc_of(const rig_input *in) {
     double step = sim_volts_per_count(in);
-    return (adc){in, step, ldexp(1.0, in->bits) - 1,
-                 in->field_per_volt != 0 ? 1 / in->field_per_volt : 0, 1 / step};
+    double per_volt = in->field_per_volt != 0 ? 1 / in->field_per_volt : 0;
+    return (adc){in, step, ldexp(1.0, in->bits) - 1, per_volt, 1 / step, in->range_lo,
+                 in->range_hi, in->field_per_volt,
+                 in->field_per_volt != 0 && isfinite(per_volt) && in->bits > 0 && in->bits <= 30};
 }
 
 /* A field that is not a number stays one (a fault of the model shows, and
  * is never quantized into a plausible code). */
 static inline double adc_convert(const adc *c, double field) {
+    if (c->quick) {     /* the same steps as below, as selections the loop can run through */
+        double v = field * c->per_volt;
+        v = v < c->lo ? c->lo : v;
+        v = v > c->hi ? c->hi : v;
+        v = isnan(v) ? c->lo : v;       /* set aside: no NaN is converted to an int */
+        double code = (double)(int32_t)((v - c->lo) * c->per_step + 0.5);
+        code = code > c->top ? c->top : code;
+        double r = (c->lo + code * c->step) * c->fpv;
+        return isnan(field) ? field : r;
+    }
     const rig_input *in = c->in;
     if (in->field_per_volt == 0 || isnan(field)) return field;
     /* the reciprocal, unless field_per_volt is so small it has none */
@@ -229,7 +243,8 @@ static void drift_walk(sim_env *e, double walk, size_t n, double *drift) {
         double from = drift[a], to = from;
         if (walk > 0) to += gsl_ran_gaussian_ziggurat(e->drift_rng, walk * sqrt((double)(b - a)));
         double slope = (to - from) / (double)(b - a);
-        for (size_t i = a + 1; i <= b; i++) drift[i] = from + slope * (double)(i - a);
+        int steps = (int)(b - a);       /* DRIFT_STRIDE at most: an int converts quickly */
+        for (int j = 1; j <= steps; j++) drift[a + (size_t)j] = from + slope * j;
         a = b;
     }
     e->drift = drift[n - 1];
@@ -420,8 +435,11 @@ int sim_record(sim_env *e, const sim_scene *sc, const sim_signal *sig,
     for (size_t i = 0; i < a->ninputs; i++) {
         adc c = adc_of(&rig->inputs[a->inputs[i]]);
         float zero = (float)adc_convert(&c, 0), *o = out + i;
-        for (size_t k = 0; k < a->nsamples; k++, o += a->ninputs)
-            *o = i == slot ? (float)adc_convert(&c, e->field[k]) : zero;
+        if (i != slot)
+            for (size_t k = 0; k < a->nsamples; k++, o += a->ninputs) *o = zero;
+        else
+            for (size_t k = 0; k < a->nsamples; k++, o += a->ninputs)
+                *o = (float)adc_convert(&c, e->field[k]);
     }
     return 0;
 }
