@@ -40,7 +40,7 @@ struct store {
     pthread_mutex_t journal_lock;   /* the journal's own: any thread appends */
     pthread_mutex_t lock;           /* everything below */
     pthread_cond_t work;            /* a record was queued, or stop */
-    pthread_cond_t room;            /* a record left the queue or was written */
+    pthread_cond_t room;            /* the queue half empty, all written, or a failure */
     store_record **queue;
     size_t capacity, head, count;
     /* Records built into file images, waiting for the committer: building
@@ -522,6 +522,10 @@ static void place_built(store *s, uint64_t ticket, built_record *b) {
     if (ticket == s->stage_base + s->awaited) pthread_cond_signal(&s->built);
 }
 
+/* With s->lock held: a full queue's submitter waits until no more than
+ * this many records are left in it. */
+static size_t low_water(const store *s) { return s->capacity / 2; }
+
 /* With s->lock held: how many slots from the stage's base are filled. */
 static size_t filled_run(const store *s) {
     size_t n = 0;
@@ -552,7 +556,7 @@ static void *builder_main(void *arg) {
         s->inflight++;
         uint64_t ticket = s->tickets++;
         bool skip = s->failed;
-        pthread_cond_broadcast(&s->room);
+        if (s->count <= low_water(s)) pthread_cond_broadcast(&s->room);   /* what a submitter awaits */
         pthread_mutex_unlock(&s->lock);
         built_record *b = skip ? NULL : calloc(1, sizeof *b);
         if (b) {
@@ -630,7 +634,7 @@ static void *committer_main(void *arg) {
         } else if (skip) {
             s->lost += n;
         }
-        pthread_cond_broadcast(&s->room);
+        if (s->failed || (s->count == 0 && s->inflight == 0)) pthread_cond_broadcast(&s->room);
     }
     pthread_mutex_unlock(&s->lock);
     return NULL;
@@ -711,7 +715,10 @@ int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen)
             pthread_cond_signal(&s->work);
             rc = 0;
         } else if (wait) {
-            pthread_cond_wait(&s->room, &s->lock);
+            /* until half the queue is free: then it is filled again in a row,
+             * one wake-up for half a queue of records */
+            while (s->started && !s->stopping && !s->failed && s->count > low_water(s))
+                pthread_cond_wait(&s->room, &s->lock);
             continue;
         }
         break;
