@@ -68,7 +68,8 @@ static int write_all(int fd, const char *p, size_t len) {
 
 /* Appends text (whole lines) and fsyncs; on failure cuts the file back to
  * where it was, so a reader never meets half a line. */
-static int append_line(int fd, const char *text, size_t len, char *err, size_t errlen) {
+static int append_line(int fd, const char *text, size_t len, size_t lines, char *err,
+                       size_t errlen) {
     struct stat st;
     if (fstat(fd, &st) != 0) {
         snprintf(err, errlen, "cannot append to journal.jsonl: %s", strerror(errno));
@@ -77,8 +78,8 @@ static int append_line(int fd, const char *text, size_t len, char *err, size_t e
     if (write_all(fd, text, len) == 0 && fsync(fd) == 0) return 0;
     int saved = errno;
     if (ftruncate(fd, st.st_size) == 0) (void)fsync(fd);
-    snprintf(err, errlen, "cannot append to journal.jsonl: %s; the line was not written",
-             strerror(saved));
+    snprintf(err, errlen, "cannot append to journal.jsonl: %s; the %s not written",
+             strerror(saved), lines > 1 ? "lines were" : "line was");
     return -1;
 }
 
@@ -132,7 +133,7 @@ int journal_append_lines(store *s, const char *event, void **objects, size_t n, 
     }
     if (rc == 0 && len > 0) {
         int fd = store_journal_lock(s);
-        rc = append_line(fd, all, len, err, errlen);
+        rc = append_line(fd, all, len, n, err, errlen);
         store_journal_unlock(s);
     }
     free(all);

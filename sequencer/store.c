@@ -60,6 +60,8 @@ struct store {
                                      * (then the caller goes down once they are made) */
     bool started, stopping, failed;
     size_t ok, nfailed, lost;       /* lost: dropped after the writer failed */
+    size_t unjournalled;            /* after the failure: in place, but without a line */
+    uint64_t fail_ticket;           /* the ticket of the record it failed at; UINT64_MAX */
     char error[640];
     pthread_t builder[BUILDERS], committer;
 };
@@ -160,6 +162,7 @@ static store *store_alloc(const char *dir) {
     if (!s) return NULL;
     s->dirfd = s->recordsfd = s->failedfd = s->journalfd = -1;
     s->build_nice = BUILD_NICE;
+    s->fail_ticket = UINT64_MAX;
     s->dir = strdup(dir);
     if (!s->dir || pthread_mutex_init(&s->journal_lock, NULL) != 0) {
         free(s->dir);
@@ -434,12 +437,13 @@ static int folder_of(const store *s, const built_record *b) {
  * (fsync'd, renamed), each folder that took one fsync'd once, then their
  * journal lines in order, in one write and one fsync. A failure to place
  * one stops there: the images placed before it are still made durable and
- * journalled. Returns how many were journalled; fewer than n means err
- * says why the next one was not (the first, when the journal itself
- * failed: then none of the batch is journalled). */
+ * journalled. Returns how many were journalled, k; fewer than n means err
+ * says why record k was not (the first, when the journal itself failed:
+ * then none of the batch is journalled). *on_disk: how many were placed,
+ * journalled or not. */
 
-static size_t commit_batch(store *s, built_record *const *b, size_t n, char *err,
-                           size_t errlen) {
+static size_t commit_batch(store *s, built_record *const *b, size_t n, size_t *on_disk,
+                           char *err, size_t errlen) {
     int fd[STAGE_DEPTH];
     size_t started = 0, placed = 0;
     const char *what = NULL;    /* what failed, of the record where the batch stops */
@@ -471,12 +475,14 @@ static size_t commit_batch(store *s, built_record *const *b, size_t n, char *err
     else if (placed < n)
         snprintf(err, errlen, "%s", b[placed]->err);    /* HDF5 could not build it */
     char why[256];
+    *on_disk = placed;
     if ((sync_records && fsync(s->recordsfd) != 0) || (sync_failed && fsync(s->failedfd) != 0)) {
         snprintf(err, errlen, "record %s written but not journalled (fsync of its folder: %s)",
                  b[0]->rel, strerror(errno));
         return 0;
     }
-    /* their lines in one write and one fsync: all journalled, or none */
+    /* their lines in one write and one fsync, all of them or none (those
+     * made, should memory run out for one: never a line before its record) */
     void *lines[STAGE_DEPTH];
     size_t made = 0;
     while (made < placed &&
@@ -511,7 +517,11 @@ static void lower_priority(int by) {
     (void)setpriority(PRIO_PROCESS, (id_t)gettid(), now + by > 19 ? 19 : now + by);
 }
 
-void store_writer_first(store *s) { s->build_nice = 0; }
+int store_writer_first(store *s) {
+    if (s->started) return -1;      /* its builders already run niced */
+    s->build_nice = 0;
+    return 0;
+}
 
 /* With s->lock held: the ticket's slot on the stage, once the committer
  * has room for it, filled with b (NULL: the record was dropped). */
@@ -523,8 +533,12 @@ static void place_built(store *s, uint64_t ticket, built_record *b) {
 }
 
 /* With s->lock held: a full queue's submitter waits until no more than
- * this many records are left in it. */
-static size_t low_water(const store *s) { return s->capacity / 2; }
+ * this many records are left in it: one less than full in a run that keeps
+ * time (each shot held at rest only as long as the disk needs), half of it
+ * when the writer goes first (one wake-up for half a queue of shots). */
+static size_t low_water(const store *s) {
+    return s->build_nice == 0 ? s->capacity / 2 : s->capacity - 1;
+}
 
 /* With s->lock held: how many slots from the stage's base are filled. */
 static size_t filled_run(const store *s) {
@@ -572,6 +586,7 @@ static void *builder_main(void *arg) {
                 s->lost++;
             } else {
                 s->failed = true;
+                s->fail_ticket = ticket;
                 snprintf(s->error, sizeof s->error, "record writer: out of memory");
             }
             pthread_cond_broadcast(&s->room);
@@ -605,19 +620,21 @@ static void *committer_main(void *arg) {
             pthread_cond_wait(&s->built, &s->lock);
         }
         s->awaited = 0;
-        size_t n = 0;
+        size_t n = 0, keep = 0;
         for (size_t i = 0; i < STAGE_DEPTH && s->filled[s->stage_base % STAGE_DEPTH]; i++) {
-            size_t slot = s->stage_base++ % STAGE_DEPTH;
+            uint64_t ticket = s->stage_base++;
+            size_t slot = ticket % STAGE_DEPTH;
+            /* what came before the failure is still committed, what came
+             * after it is dropped (a dropped record's slot is NULL) */
+            if (s->stage[slot] && ticket < s->fail_ticket && keep == n) keep++;
             if (s->stage[slot]) batch[n++] = s->stage[slot];
             s->stage[slot] = NULL;
             s->filled[slot] = false;
         }
-        /* A dropped record's slot comes after the failure that dropped it:
-         * the batch holding it is skipped whole. */
-        bool skip = s->failed;
         pthread_cond_broadcast(&s->built_room);
         pthread_mutex_unlock(&s->lock);
-        size_t done = skip || n == 0 ? 0 : commit_batch(s, batch, n, err, sizeof err);
+        size_t placed = 0;
+        size_t done = keep ? commit_batch(s, batch, keep, &placed, err, sizeof err) : 0;
         size_t nfailed = 0;
         for (size_t i = 0; i < n; i++) {
             if (i < done && batch[i]->failed) nfailed++;
@@ -627,13 +644,14 @@ static void *committer_main(void *arg) {
         s->inflight -= n;
         s->ok += done - nfailed;
         s->nfailed += nfailed;
-        if (done < n && !skip) {
+        if (done < keep) {      /* record done is the one err names: it is the error */
             s->failed = true;
+            if (s->fail_ticket > s->stage_base) s->fail_ticket = s->stage_base;
             memcpy(s->error, err, sizeof s->error);
-            s->lost += n - done - 1;    /* the one err names is not lost: it is the error */
-        } else if (skip) {
-            s->lost += n;
+            s->unjournalled += placed > done ? placed - done - 1 : 0;
+            s->lost += keep - (placed > done + 1 ? placed : done + 1);
         }
+        s->lost += n - keep;
         if (s->failed || (s->count == 0 && s->inflight == 0)) pthread_cond_broadcast(&s->room);
     }
     pthread_mutex_unlock(&s->lock);
@@ -644,11 +662,14 @@ static void *committer_main(void *arg) {
  * dropped after it counted, so none goes missing unreported. */
 static int report_failure(store *s, char *err, size_t errlen) {
     if (!s->failed) return 0;
+    char on_disk[160] = "", lost[96] = "";
+    if (s->unjournalled)
+        snprintf(on_disk, sizeof on_disk, "; %zu record(s) after it are in place but not "
+                 "journalled (they do not count as done)", s->unjournalled);
     if (s->lost)
-        snprintf(err, errlen, "%s; %zu record(s) queued after it were not written either",
-                 s->error, s->lost);
-    else
-        snprintf(err, errlen, "%s", s->error);
+        snprintf(lost, sizeof lost, "; %zu record(s) queued after it were not written either",
+                 s->lost);
+    snprintf(err, errlen, "%s%s%s", s->error, on_disk, lost);
     return -1;
 }
 
@@ -715,8 +736,8 @@ int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen)
             pthread_cond_signal(&s->work);
             rc = 0;
         } else if (wait) {
-            /* until half the queue is free: then it is filled again in a row,
-             * one wake-up for half a queue of records */
+            /* until the low water mark: when the writer goes first, half the
+             * queue, filled again in a row */
             while (s->started && !s->stopping && !s->failed && s->count > low_water(s))
                 pthread_cond_wait(&s->room, &s->lock);
             continue;
@@ -760,7 +781,7 @@ int store_finish(store *s, size_t *lost, char *err, size_t errlen) {
         for (int i = 0; i < BUILDERS; i++) pthread_join(s->builder[i], NULL);
         pthread_join(s->committer, NULL);
     }
-    *lost = s->lost;
+    *lost = s->lost + s->unjournalled;     /* shots the journal does not list */
     int rc = report_failure(s, err, errlen);
     store_free(s);
     return rc;

@@ -93,12 +93,14 @@ int store_create(const char *dir, const store_files *files, store **out, char *e
 int store_start(store *s, size_t capacity, char *err, size_t errlen);
 /* Before store_start: the writer goes first. The thread that starts it goes
  * down 10 instead of the builders (once store_start has made them at its
- * priority): for a thread whose pace the writer sets anyway (the scheduler
- * under run --fast). */
-void store_writer_first(store *s);
+ * priority), and a submitter waiting on a full queue waits until half of it
+ * is free: for a thread whose pace the writer sets anyway (the scheduler
+ * under run --fast). -1 once the writer has started (nothing changes). */
+int store_writer_first(store *s);
 /* Hand a record to the writer (it takes ownership). When the queue is full
  * it returns 1 at once without taking it unless wait is true, in which case
- * it waits for room. Returns 0 when queued, -1 when the writer has failed
+ * it waits for room (for half the queue when the writer goes first).
+ * Returns 0 when queued, -1 when the writer has failed
  * (err then says why: e.g. the disk is full). */
 int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen);
 /* Wait until every queued record is written (and journalled). */

@@ -658,8 +658,7 @@ static void *start_writer_first(void *arg) {     /* no cmocka here: not its thre
     first_writer *f = arg;
     char err[512] = "";
     f->before = getpriority(PRIO_PROCESS, (id_t)gettid());
-    store_writer_first(f->s);
-    f->started = store_start(f->s, 1, err, sizeof err);
+    f->started = store_writer_first(f->s) | store_start(f->s, 1, err, sizeof err);
     f->after = getpriority(PRIO_PROCESS, (id_t)gettid());
     return NULL;
 }
@@ -677,6 +676,8 @@ static void test_builder_yields_the_cpu_and_committer_keeps_it(void **state) {
     writer_nice(&build, &commit);
     assert_int_equal(commit, mine);
     assert_int_equal(build, mine + 10 > 19 ? 19 : mine + 10);
+    assert_int_equal(getpriority(PRIO_PROCESS, (id_t)gettid()), mine);
+    assert_int_equal(store_writer_first(s), -1);   /* too late: the builders are niced */
     assert_int_equal(getpriority(PRIO_PROCESS, (id_t)gettid()), mine);
     if (store_close(s, err, sizeof err) != 0) fail_msg("store_close: %s", err);
     remove_scratch(dir);
@@ -878,6 +879,76 @@ static void test_file_size_limit_is_reported_and_not_journalled(void **state) {
     remove_scratch(dir);
 }
 
+/* The files named like records (no temporary ones) in dir/records. */
+static size_t count_records(const char *dir) {
+    char path[256];
+    snprintf(path, sizeof path, "%s/records", dir);
+    DIR *d = opendir(path);
+    assert_non_null(d);
+    size_t n = 0;
+    struct dirent *e;
+    while ((e = readdir(d)))
+        n += e->d_name[0] != '.' && strstr(e->d_name, ".h5") != NULL;
+    closedir(d);
+    return n;
+}
+
+/* The journal, not the records, reaches the file size limit: the record it
+ * fails at is named as written but not journalled, the records after it in
+ * place are counted apart from those never written, and every shot handed
+ * over is journalled, named, or counted: none goes missing unreported. */
+static void test_journal_failure_counts_what_is_on_disk_apart(void **state) {
+    (void)state;
+    char dir[128], err[640] = "", path[256];
+    scratch_run(dir, "journal-full");
+    store *s = create_run(dir);
+    assert_int_equal(store_start(s, 16, err, sizeof err), 0);
+    assert_int_equal(store_submit(s, make_record(1, 1, false, 100, false), true, err,
+                                  sizeof err), 0);
+    assert_int_equal(store_flush(s, err, sizeof err), 0);
+    struct stat record, journal;
+    snprintf(path, sizeof path, "%s/records/000001.h5", dir);
+    assert_int_equal(stat(path, &record), 0);
+    snprintf(path, sizeof path, "%s/journal.jsonl", dir);
+    assert_int_equal(stat(path, &journal), 0);
+    struct rlimit old, small;
+    getrlimit(RLIMIT_FSIZE, &old);
+    small = old;        /* every record fits; the journal fills after a few lines */
+    small.rlim_cur = (rlim_t)(record.st_size > journal.st_size ? record.st_size
+                                                               : journal.st_size) + 3000;
+    signal(SIGXFSZ, SIG_IGN);
+    assert_int_equal(setrlimit(RLIMIT_FSIZE, &small), 0);
+    uint32_t handed = 1;
+    while (handed < 200 && store_submit(s, make_record(handed + 1, 1, false, 100, false), true,
+                                        err, sizeof err) == 0)
+        handed++;
+    size_t lost = 0;
+    int rc = store_finish(s, &lost, err, sizeof err);
+    setrlimit(RLIMIT_FSIZE, &old);
+    if (handed < 200) handed++;             /* the one refused ran too */
+    assert_int_equal(rc, -1);
+    assert_non_null(strstr(err, "written but not journalled"));
+    size_t n, files = count_records(dir);
+    json_t **lines = journal_lines(dir, &n);
+    free_lines(lines, n);
+    assert_true(files >= n + 1);            /* the one named is in place */
+    size_t unjournalled = files - n - 1, said = 0;
+    const char *part = strstr(err, "record(s) after it are in place but not journalled");
+    if (unjournalled) {
+        assert_non_null(part);
+        const char *num = part;
+        while (num > err && num[-1] != ';') num--;
+        said = (size_t)strtoul(num + 1, NULL, 10);
+    } else {
+        assert_null(part);
+    }
+    assert_int_equal(said, unjournalled);
+    assert_int_equal(n + 1 + lost, handed);
+    print_message("      %u handed over, %zu journalled, %zu in place without a line: %s\n",
+                  handed, n, unjournalled, err);
+    remove_scratch(dir);
+}
+
 int main(void) {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_sha256_matches_fips_examples),
@@ -886,6 +957,7 @@ int main(void) {
         cmocka_unit_test(test_journal_lines_stay_whole_from_two_threads),
         cmocka_unit_test(test_journal_line_taken_back_whole_when_it_cannot_be_written),
         cmocka_unit_test(test_journal_lines_appended_together_are_all_or_none),
+        cmocka_unit_test(test_journal_failure_counts_what_is_on_disk_apart),
         cmocka_unit_test(test_create_refuses_an_existing_folder),
         cmocka_unit_test(test_create_failing_midway_leaves_no_folder),
         cmocka_unit_test(test_run_of_three_ok_and_one_failed_through_a_queue_of_one),

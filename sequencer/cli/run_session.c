@@ -214,7 +214,7 @@ static int open_folder(run_session *r) {
     free(points);
     /* In simulated time nothing waits for a deadline: the writer sets the
      * pace, and gets a core first. */
-    if (rc == 0 && r->fast) store_writer_first(r->st);
+    if (rc == 0 && r->fast) rc = store_writer_first(r->st);    /* not yet started: 0 */
     if (rc == 0) rc = store_start(r->st, 16, err, sizeof err);
     if (rc) fprintf(stderr, "precess run: %s: %s\n", r->dir, points ? err : "out of memory");
     return rc;
