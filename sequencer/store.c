@@ -62,6 +62,7 @@ struct store {
     size_t ok, nfailed, lost;       /* lost: dropped after the writer failed */
     size_t unjournalled;            /* after the failure: in place, but without a line */
     uint64_t fail_ticket;           /* the ticket of the record it failed at; UINT64_MAX */
+    uint64_t no_memory_at;          /* tests: the builder finds no memory for this ticket */
     char error[640];
     pthread_t builder[BUILDERS], committer;
 };
@@ -162,7 +163,7 @@ static store *store_alloc(const char *dir) {
     if (!s) return NULL;
     s->dirfd = s->recordsfd = s->failedfd = s->journalfd = -1;
     s->build_nice = BUILD_NICE;
-    s->fail_ticket = UINT64_MAX;
+    s->fail_ticket = s->no_memory_at = UINT64_MAX;
     s->dir = strdup(dir);
     if (!s->dir || pthread_mutex_init(&s->journal_lock, NULL) != 0) {
         free(s->dir);
@@ -517,6 +518,8 @@ static void lower_priority(int by) {
     (void)setpriority(PRIO_PROCESS, (id_t)gettid(), now + by > 19 ? 19 : now + by);
 }
 
+void store_test_no_memory_at(store *s, uint64_t record) { s->no_memory_at = record; }
+
 int store_writer_first(store *s) {
     if (s->started) return -1;      /* its builders already run niced */
     s->build_nice = 0;
@@ -572,7 +575,7 @@ static void *builder_main(void *arg) {
         bool skip = s->failed;
         if (s->count <= low_water(s)) pthread_cond_broadcast(&s->room);   /* what a submitter awaits */
         pthread_mutex_unlock(&s->lock);
-        built_record *b = skip ? NULL : calloc(1, sizeof *b);
+        built_record *b = skip || ticket == s->no_memory_at ? NULL : calloc(1, sizeof *b);
         if (b) {
             b->r = r;
             build_record(w, b);
@@ -645,6 +648,9 @@ static void *committer_main(void *arg) {
         s->ok += done - nfailed;
         s->nfailed += nfailed;
         if (done < keep) {      /* record done is the one err names: it is the error */
+            /* a builder's failure, at a later record, named until now: that
+             * record is one of those dropped after this one */
+            if (s->failed) s->lost++;
             s->failed = true;
             if (s->fail_ticket > s->stage_base) s->fail_ticket = s->stage_base;
             memcpy(s->error, err, sizeof s->error);

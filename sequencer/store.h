@@ -97,6 +97,9 @@ int store_start(store *s, size_t capacity, char *err, size_t errlen);
  * is free: for a thread whose pace the writer sets anyway (the scheduler
  * under run --fast). -1 once the writer has started (nothing changes). */
 int store_writer_first(store *s);
+/* For tests, before store_start: the builder finds no memory for the
+ * record-th record handed over (from 0), as if malloc had failed. */
+void store_test_no_memory_at(store *s, uint64_t record);
 /* Hand a record to the writer (it takes ownership). When the queue is full
  * it returns 1 at once without taking it unless wait is true, in which case
  * it waits for room (for half the queue when the writer goes first).

@@ -893,6 +893,35 @@ static size_t count_records(const char *dir) {
     return n;
 }
 
+/* The builder finds no memory for the sixth record: the five before it are
+ * journalled all the same (some of them waiting in the same batch as
+ * those after it), the sixth is the error, and every later shot counted. */
+static void test_records_before_a_failure_are_still_journalled(void **state) {
+    (void)state;
+    char dir[128], err[640] = "";
+    scratch_run(dir, "no-memory");
+    store *s = create_run(dir);
+    store_test_no_memory_at(s, 5);
+    assert_int_equal(store_start(s, 16, err, sizeof err), 0);
+    uint32_t handed = 0;
+    while (handed < 16 && store_submit(s, make_record(handed + 1, 1, false, 20000, true), true,
+                                       err, sizeof err) == 0)
+        handed++;
+    if (handed < 16) handed++;              /* the one refused ran too */
+    size_t lost = 0;
+    assert_int_equal(store_finish(s, &lost, err, sizeof err), -1);
+    assert_non_null(strstr(err, "out of memory"));
+    size_t n;
+    json_t **lines = journal_lines(dir, &n);
+    assert_int_equal(n, 5);
+    for (size_t i = 0; i < n; i++)
+        assert_int_equal(json_integer_value(json_object_get(lines[i], "shot")), (json_int_t)i + 1);
+    free_lines(lines, n);
+    assert_int_equal(count_records(dir), 5);
+    assert_int_equal(n + 1 + lost, handed);
+    remove_scratch(dir);
+}
+
 /* The journal, not the records, reaches the file size limit: the record it
  * fails at is named as written but not journalled, the records after it in
  * place are counted apart from those never written, and every shot handed
@@ -958,6 +987,7 @@ int main(void) {
         cmocka_unit_test(test_journal_line_taken_back_whole_when_it_cannot_be_written),
         cmocka_unit_test(test_journal_lines_appended_together_are_all_or_none),
         cmocka_unit_test(test_journal_failure_counts_what_is_on_disk_apart),
+        cmocka_unit_test(test_records_before_a_failure_are_still_journalled),
         cmocka_unit_test(test_create_refuses_an_existing_folder),
         cmocka_unit_test(test_create_failing_midway_leaves_no_folder),
         cmocka_unit_test(test_run_of_three_ok_and_one_failed_through_a_queue_of_one),
