@@ -73,21 +73,25 @@ static bool exists(const char *dir, const char *name) {
     return stat(path, &st) == 0;
 }
 
-/* Names ending in .tmp in folder dir/sub. */
-static int count_tmp(const char *dir, const char *sub) {
+/* Names longer than suffix and ending in it, in folder dir/sub. */
+static int count_ending(const char *dir, const char *sub, const char *suffix) {
     char path[1024];
     snprintf(path, sizeof path, "%s/%s", dir, sub);
     DIR *d = opendir(path);
     assert_non_null(d);
     int n = 0;
+    size_t tail = strlen(suffix);
     struct dirent *e;
     while ((e = readdir(d))) {
         size_t len = strlen(e->d_name);
-        if (len > 4 && strcmp(e->d_name + len - 4, ".tmp") == 0) n++;
+        if (len > tail && strcmp(e->d_name + len - tail, suffix) == 0) n++;
     }
     closedir(d);
     return n;
 }
+
+/* Temporary files in dir/sub. */
+static int count_tmp(const char *dir, const char *sub) { return count_ending(dir, sub, ".tmp"); }
 
 /* A fresh folder under /tmp; dir becomes FOLDER/run (not yet created). */
 static void scratch_run(char dir[128], const char *tag) {
@@ -879,19 +883,9 @@ static void test_file_size_limit_is_reported_and_not_journalled(void **state) {
     remove_scratch(dir);
 }
 
-/* The files named like records (no temporary ones) in dir/records. */
-static size_t count_records(const char *dir) {
-    char path[256];
-    snprintf(path, sizeof path, "%s/records", dir);
-    DIR *d = opendir(path);
-    assert_non_null(d);
-    size_t n = 0;
-    struct dirent *e;
-    while ((e = readdir(d)))
-        n += e->d_name[0] != '.' && strstr(e->d_name, ".h5") != NULL;
-    closedir(d);
-    return n;
-}
+/* The files named like records in dir/records (a temporary one ends in
+ * .tmp). */
+static size_t count_records(const char *dir) { return (size_t)count_ending(dir, "records", ".h5"); }
 
 /* The builder finds no memory for the sixth record: the five before it are
  * journalled all the same (some of them waiting in the same batch as
