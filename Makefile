@@ -55,7 +55,10 @@ $(B)/tests/%: tests/%.c $(B)/libprecess.a $(HEADERS)
 	@mkdir -p $(dir $@)
 	@echo "  TEST    $@"
 	@$(CC) $(ALL_CFLAGS) $(shell pkg-config --cflags cmocka) -o $@ $< \
-	  $(B)/libprecess.a $(LIBS) $(shell pkg-config --libs cmocka)
+	  $(B)/libprecess.a $(LIBS) $(shell pkg-config --libs cmocka) $(TEST_LDFLAGS)
+
+# test_store watches the committer's fsyncs and renames through the link.
+$(B)/tests/test_store: TEST_LDFLAGS = -Wl,--wrap=fsync -Wl,--wrap=renameat
 
 # Install what is missing (as root), or say exactly what to run.
 deps:

@@ -23,10 +23,10 @@
 
 /* Built images waiting for the committer: room for a group being gathered
  * while both builders go on. */
-#define STAGE_DEPTH 8
+#define STAGE_DEPTH 16
 /* Records committed together when the next is already being built: their
  * folder fsync'd once and their journal lines written at once. */
-#define GROUP 4
+#define GROUP 8
 /* Record builders: the CPU a record takes, HDF5's share one at a time, the
  * compression side by side (one builder alone was the run's slowest stage). */
 #define BUILDERS 2
@@ -387,16 +387,23 @@ static int start_file(int dirfd, const char *tmp, const void *image, size_t len,
     return -1;
 }
 
-/* Second half: fsync'd, closed, renamed to name; NULL, or what failed with
- * the temporary file removed. */
-static const char *finish_file(int dirfd, int fd, const char *tmp, const char *name) {
+/* Second half: fsync'd and closed; NULL, or what failed with the temporary
+ * file removed. */
+static const char *sync_file(int dirfd, int fd, const char *tmp) {
     const char *what = fsync(fd) != 0 ? "fsync" : NULL;
     int saved = errno;
     if (close(fd) != 0 && !what) what = "close";
     else if (what) errno = saved;       /* the fsync's reason, not close's */
-    if (!what && renameat(dirfd, tmp, dirfd, name) != 0) what = "rename";
     if (what) drop_tmp(dirfd, tmp);
     return what;
+}
+
+/* Last: renamed to name; NULL, or what failed with the temporary file
+ * removed. */
+static const char *place_file(int dirfd, const char *tmp, const char *name) {
+    if (renameat(dirfd, tmp, dirfd, name) == 0) return NULL;
+    drop_tmp(dirfd, tmp);
+    return "rename";
 }
 
 /* name in dirfd, whole or not at all, as a record is placed: temporary
@@ -406,7 +413,7 @@ static int write_file_at(int dirfd, const char *name, const void *bytes, size_t 
     const char *what;
     snprintf(tmp, sizeof tmp, ".%s.tmp", name);
     int fd = start_file(dirfd, tmp, bytes, len, &what);
-    return fd < 0 || finish_file(dirfd, fd, tmp, name) ? -1 : 0;
+    return fd < 0 || sync_file(dirfd, fd, tmp) || place_file(dirfd, tmp, name) ? -1 : 0;
 }
 
 /* The builder's half: r as the bytes of its file, and their sha256. */
@@ -454,17 +461,33 @@ static size_t commit_batch(store *s, built_record *const *b, size_t n, size_t *o
         if (fd[started] < 0) break;
     }
     int saved = errno;
-    bool sync_records = false, sync_failed = false;
-    for (; placed < started; placed++) {
-        const built_record *r = b[placed];
-        const char *failed = finish_file(folder_of(s, r), fd[placed], r->tmp, r->name);
+    /* Every file fsync'd before any is renamed: a rename dirties the folder
+     * (and the renamed inode) again, and the next file's fsync would write
+     * them out once more (ext4 without a journal syncs a new file's folder
+     * with it). */
+    size_t synced = 0;
+    for (; synced < started; synced++) {
+        const built_record *r = b[synced];
+        const char *failed = sync_file(folder_of(s, r), fd[synced], r->tmp);
         if (failed) {
             what = failed;
             saved = errno;
-            for (size_t i = placed + 1; i < started; i++) {     /* started, never placed */
+            for (size_t i = synced + 1; i < started; i++) {     /* started, never synced */
                 close(fd[i]);
                 drop_tmp(folder_of(s, b[i]), b[i]->tmp);
             }
+            break;
+        }
+    }
+    bool sync_records = false, sync_failed = false;
+    for (; placed < synced; placed++) {
+        const built_record *r = b[placed];
+        const char *failed = place_file(folder_of(s, r), r->tmp, r->name);
+        if (failed) {
+            what = failed;
+            saved = errno;
+            for (size_t i = placed + 1; i < synced; i++)        /* synced, never placed */
+                drop_tmp(folder_of(s, b[i]), b[i]->tmp);
             break;
         }
         *(r->failed ? &sync_failed : &sync_records) = true;

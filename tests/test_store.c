@@ -796,6 +796,86 @@ static void test_records_are_journalled_in_the_order_queued(void **state) {
     remove_scratch(dir);
 }
 
+/* The committer's fsyncs and renames, in the order made: the link wraps
+ * them (-Wl,--wrap, in the Makefile) for this test binary only. T: a
+ * temporary file's fsync, D: a folder's, O: another file's (the journal);
+ * R: a rename. A slow first fsync lets records pile up on the stage. */
+int __real_fsync(int fd);
+int __real_renameat(int olddirfd, const char *oldpath, int newdirfd, const char *newpath);
+static pthread_mutex_t calls_lock = PTHREAD_MUTEX_INITIALIZER;
+static char calls[4096];
+static size_t ncalls;
+static bool logging_calls;
+
+static void log_call(char c) {
+    pthread_mutex_lock(&calls_lock);
+    if (logging_calls && ncalls + 1 < sizeof calls) calls[ncalls++] = c;
+    pthread_mutex_unlock(&calls_lock);
+}
+
+int __wrap_fsync(int fd) {
+    struct stat st;
+    char link[64], path[4096] = "";
+    snprintf(link, sizeof link, "/proc/self/fd/%d", fd);
+    ssize_t len = readlink(link, path, sizeof path - 1);
+    if (len > 0) path[len] = '\0';
+    bool dir = fstat(fd, &st) == 0 && S_ISDIR(st.st_mode);
+    bool tmp = len > 4 && strcmp(path + len - 4, ".tmp") == 0;
+    pthread_mutex_lock(&calls_lock);
+    bool first = logging_calls && ncalls == 0;
+    pthread_mutex_unlock(&calls_lock);
+    if (first) usleep(100000);
+    log_call(dir ? 'D' : tmp ? 'T' : 'O');
+    return __real_fsync(fd);
+}
+
+int __wrap_renameat(int olddirfd, const char *oldpath, int newdirfd, const char *newpath) {
+    log_call('R');
+    return __real_renameat(olddirfd, oldpath, newdirfd, newpath);
+}
+
+/* Every file of a batch fsync'd before any is renamed (a rename between two
+ * would have the next fsync write the folder out again), and each batch
+ * of renames followed by its folder's fsync before the journal's. */
+static void test_a_batch_is_fsynced_before_any_is_renamed(void **state) {
+    (void)state;
+    char dir[128], err[512] = "";
+    scratch_run(dir, "batch");
+    store *s = create_run(dir);
+    assert_int_equal(store_start(s, 16, err, sizeof err), 0);
+    pthread_mutex_lock(&calls_lock);
+    ncalls = 0;
+    logging_calls = true;
+    pthread_mutex_unlock(&calls_lock);
+    enum { SHOTS = 12 };
+    for (uint32_t shot = 1; shot <= SHOTS; shot++)
+        if (store_submit(s, make_record(shot, 1, false, 100, false), true, err, sizeof err) != 0)
+            fail_msg("shot %u: %s", shot, err);
+    if (store_close(s, err, sizeof err) != 0) fail_msg("store_close: %s", err);
+    pthread_mutex_lock(&calls_lock);
+    logging_calls = false;
+    calls[ncalls] = '\0';
+    pthread_mutex_unlock(&calls_lock);
+    size_t temps = 0, renames = 0, widest = 0, batch = 0;
+    for (size_t i = 0; i < ncalls; i++) {
+        char c = calls[i], next = calls[i + 1];
+        temps += c == 'T', renames += c == 'R';
+        if (c == 'R' && next == 'T') fail_msg("a fsync after a rename of its batch: %s", calls);
+        if (c == 'T' && next == 'R') batch = 0;
+        if (c == 'R' && ++batch > widest) widest = batch;
+        if (c == 'R' && next != 'R' && next != 'D') fail_msg("renames not then synced: %s", calls);
+    }
+    assert_int_equal(temps, SHOTS);
+    assert_int_equal(renames, SHOTS);
+    if (widest < 2) fail_msg("no batch of two or more records: %s", calls);
+    size_t n;
+    json_t **lines = journal_lines(dir, &n);
+    assert_int_equal(n, SHOTS);
+    for (size_t i = 0; i < n; i++) check_shot_line(dir, lines[i], (int)i + 1, 1, false);
+    free_lines(lines, n);
+    remove_scratch(dir);
+}
+
 /* ---- write errors ------------------------------------------------------------ */
 
 /* A small record fits; a large uncompressible one does not: it must be
@@ -988,6 +1068,7 @@ int main(void) {
         cmocka_unit_test(test_submit_refuses_bad_records_and_keeps_writing),
         cmocka_unit_test(test_two_runs_at_once_both_write_every_record),
         cmocka_unit_test(test_records_are_journalled_in_the_order_queued),
+        cmocka_unit_test(test_a_batch_is_fsynced_before_any_is_renamed),
         cmocka_unit_test(test_builder_yields_the_cpu_and_committer_keeps_it),
         cmocka_unit_test_setup_teardown(test_full_disk_is_reported_and_not_journalled,
                                         mount_small_tmpfs, unmount_small_tmpfs),
