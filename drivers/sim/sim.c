@@ -40,6 +40,8 @@
 #define MAX_RATE 1e6            /* Hz */
 #define CHUNK 0.010             /* s: a real-time acquisition's delivery period */
 #define TOLERANCE 1e-9          /* relative slack of the limit checks */
+#define LOG_LINE 512            /* the longest line of the command log */
+#define LOG_BUFFER 8192         /* bytes of log lines held in virtual time */
 
 typedef struct {
     bool active;
@@ -56,6 +58,11 @@ struct drv {
     uint64_t run_seed;
     bool virtual_time;
     int log_fd;                 /* -1: no log */
+    /* In virtual time a shot's lines go in one write: at the next shot, the
+     * safe state or the close (each line a write of its own was a tenth of
+     * the scheduler thread's system calls). In real time, each at once. */
+    char log_buf[LOG_BUFFER];
+    size_t log_len;
     sim_history *coils;
     double *scratch;            /* per coil */
     bool *line_active;
@@ -85,24 +92,34 @@ static int fail(char *err, size_t errlen, int rc, const char *fmt, ...) {
     return rc;
 }
 
-/* One command a line, "<time> <command> <args>", in one write. Errors of
- * the log are not the rig's: they are ignored. */
+/* The lines held so far, written. Errors of the log are not the rig's:
+ * they are ignored. */
+static void log_flush(drv *d) {
+    if (d->log_fd >= 0 && d->log_len) {
+        ssize_t w = write(d->log_fd, d->log_buf, d->log_len);
+        (void)w;
+    }
+    d->log_len = 0;
+}
+
+/* One command a line, "<time> <command> <args>", each line in one write. */
 static void log_command(drv *d, double at, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));
 
 static void log_command(drv *d, double at, const char *fmt, ...) {
     if (d->log_fd < 0) return;
-    char line[512];
-    int n = snprintf(line, sizeof line, "%.6f ", at);
+    if (d->log_len + LOG_LINE > sizeof d->log_buf) log_flush(d);
+    char *line = d->log_buf + d->log_len;
+    int n = snprintf(line, LOG_LINE, "%.6f ", at);
     if (n < 0 || n > 64) return;
     va_list ap;
     va_start(ap, fmt);
-    n += vsnprintf(line + n, sizeof line - (size_t)n - 1, fmt, ap);
+    n += vsnprintf(line + n, LOG_LINE - (size_t)n - 1, fmt, ap);
     va_end(ap);
-    if (n > (int)sizeof line - 2) n = (int)sizeof line - 2;
+    if (n > LOG_LINE - 2) n = LOG_LINE - 2;
     line[n++] = '\n';
-    ssize_t w = write(d->log_fd, line, (size_t)n);
-    (void)w;
+    d->log_len += (size_t)n;
+    if (!d->virtual_time) log_flush(d);
 }
 
 static double now_monotonic(void) {
@@ -289,7 +306,10 @@ static void sim_close(drv *d) {
     free(d->scratch);
     free(d->line_active);
     sim_env_free(&d->env);
-    if (d->log_fd >= 0) close(d->log_fd);
+    if (d->log_fd >= 0) {
+        log_flush(d);
+        close(d->log_fd);
+    }
     free(d);
 }
 
@@ -345,6 +365,7 @@ static void sim_input_scale(drv *d, int input, double *volts_per_count, int *bit
 static int sim_begin_shot(drv *d, uint32_t shot, uint32_t attempt, const compile_timeline *t,
                           double start, char *err, size_t errlen) {
     CHECK_GONE(d, err, errlen);
+    log_flush(d);       /* the last shot's lines */
     log_command(d, start, "begin_shot %u %u", shot, attempt);
     if (gone_by(d->rig, shot)) {
         d->gone = true;
@@ -452,6 +473,7 @@ static int sim_safe_state(drv *d, double at, char *err, size_t errlen) {
         d->line_active[l] = false;
         log_command(d, at, "line %s 0", d->rig->lines[l].name);
     }
+    log_flush(d);
     if (d->virtual_time) return 0;
     struct timespec until = to_timespec(at + longest);
     while (clock_nanosleep(CLOCK_MONOTONIC, TIMER_ABSTIME, &until, NULL) == EINTR) {
