@@ -360,6 +360,10 @@ static json_t *shot_line(const store_record *r, bool failed, const char *file,
 }
 
 /* tmp in dirfd removed, errno as it was (it says why tmp is not kept). */
+/* Whether errno e says the disk (or the file size limit, or a quota) has
+ * no room, rather than that it failed. */
+static bool out_of_room(int e) { return e == ENOSPC || e == EDQUOT || e == EFBIG; }
+
 static void drop_tmp(int dirfd, const char *tmp) {
     int saved = errno;
     unlinkat(dirfd, tmp, 0);
@@ -494,8 +498,8 @@ static size_t commit_batch(store *s, built_record *const *b, size_t n, size_t *o
     }
     if (placed < n && what)
         snprintf(err, errlen, "record %s not written (%s of %s: %s; the temporary file was "
-                 "removed); free disk space, then resume the run", b[placed]->rel, what,
-                 b[placed]->tmp, strerror(saved));
+                 "removed); %s, then resume the run", b[placed]->rel, what, b[placed]->tmp,
+                 strerror(saved), out_of_room(saved) ? "free disk space" : "check the disk");
     else if (placed < n)
         snprintf(err, errlen, "%s", b[placed]->err);    /* HDF5 could not build it */
     char why[256];

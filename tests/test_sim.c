@@ -1118,6 +1118,45 @@ static void test_safe_state_ramps_every_coil_to_zero_and_lines_inactive(void **s
     free(log);
 }
 
+/* In virtual time a shot's command lines reach the log together, when the
+ * next shot begins (or at the safe state, or the close); in real time each
+ * as its command is given. */
+static void test_command_log_in_virtual_time_is_written_a_shot_at_a_time(void **state) {
+    fixture *f = *state;
+    compile_magnet(f, "8e-12");
+    snprintf(f->log, sizeof f->log, "/tmp/test_sim_log_XXXXXX");
+    int fd = mkstemp(f->log);
+    assert_true(fd >= 0);
+    close(fd);
+    drv *d = open_sim(f, 0, 1, true, f->log);
+    assert_int_equal(load_shot(f, d, 1, 1), 0);
+    assert_int_equal(f->ops->set_current(d, PREPOL, 1.5, T0 + 3.05, f->err, ERRLEN), 0);
+    char *log = slurp(f->log);
+    assert_null(strstr(log, "set_current"));        /* held with the rest of shot 1 */
+    free(log);
+    assert_int_equal(load_shot(f, d, 2, 1), 0);
+    log = slurp(f->log);
+    assert_non_null(strstr(log, "begin_shot 1 1"));
+    assert_non_null(strstr(log, "set_current prepol 1.5"));
+    assert_null(strstr(log, "begin_shot 2 1"));
+    free(log);
+    f->ops->close(d);
+    f->drv[0] = NULL;
+    log = slurp(f->log);
+    const char *second = strstr(log, "begin_shot 2 1");
+    assert_non_null(second);
+    assert_true(strstr(log, "set_current prepol 1.5") < second);     /* in the order given */
+    free(log);
+    /* real time: at once */
+    assert_int_equal(truncate(f->log, 0), 0);
+    d = open_sim(f, 1, 1, false, f->log);
+    assert_int_equal(f->ops->begin_shot(d, 1, 1, compile_shot_timeline(f->c, 1),
+                                        shot_start(f->c, 1), f->err, ERRLEN), 0);
+    log = slurp(f->log);
+    assert_non_null(strstr(log, "begin_shot 1 1"));
+    free(log);
+}
+
 /* ---- the sample's models ------------------------------------------------------------- */
 
 static void test_relaxation_models_follow_their_formulas(void **state) {
@@ -1180,6 +1219,7 @@ int main(void) {
         T(test_real_time_samples_arrive_at_the_pace_of_a_card),
         T(test_real_time_safe_state_waits_for_the_ramps),
         T(test_safe_state_ramps_every_coil_to_zero_and_lines_inactive),
+        T(test_command_log_in_virtual_time_is_written_a_shot_at_a_time),
         cmocka_unit_test(test_relaxation_models_follow_their_formulas),
         cmocka_unit_test(test_curie_law_gives_the_proton_susceptibility_of_water),
     };

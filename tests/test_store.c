@@ -1,6 +1,7 @@
 /* test_store: the store module's contract as cmocka tests: SHA-256 against
  * FIPS 180-4, the journal's lines, the run folder, records through the writer
- * thread, refusals, and write errors (a full tmpfs, a file-size limit). It
+ * thread (a batch's fsyncs before its renames, seen through the link),
+ * refusals, and write errors (a full tmpfs, a file-size limit). It
  * leaves a run in $B/tests/store-run for tests/ref/records.py (h5py).
  * Not for the HDF5 layout itself: records.py reads that with h5py. */
 #include <stdarg.h>
@@ -799,18 +800,35 @@ static void test_records_are_journalled_in_the_order_queued(void **state) {
 /* The committer's fsyncs and renames, in the order made: the link wraps
  * them (-Wl,--wrap, in the Makefile) for this test binary only. T: a
  * temporary file's fsync, D: a folder's, O: another file's (the journal);
- * R: a rename. A slow first fsync lets records pile up on the stage. */
+ * R: a rename. While calls are watched, the first T waits until the test
+ * has handed over every record (and a moment more, for the builders), so
+ * that the next batch holds several; and the fail_*_at-th T or R fails
+ * with EIO. */
 int __real_fsync(int fd);
 int __real_renameat(int olddirfd, const char *oldpath, int newdirfd, const char *newpath);
 static pthread_mutex_t calls_lock = PTHREAD_MUTEX_INITIALIZER;
+static pthread_cond_t calls_cond = PTHREAD_COND_INITIALIZER;
 static char calls[4096];
-static size_t ncalls;
-static bool logging_calls;
+static size_t ncalls, ntemps, nrenames, fail_temp_at, fail_rename_at;
+static bool watching, handed_over;
 
-static void log_call(char c) {
+/* Logs c; whether this call is to fail. */
+static bool log_call(char c) {
     pthread_mutex_lock(&calls_lock);
-    if (logging_calls && ncalls + 1 < sizeof calls) calls[ncalls++] = c;
+    bool fails = false;
+    if (watching) {
+        if (c == 'T' && ntemps++ == 0) {
+            while (!handed_over) pthread_cond_wait(&calls_cond, &calls_lock);
+            pthread_mutex_unlock(&calls_lock);
+            usleep(100000);
+            pthread_mutex_lock(&calls_lock);
+        }
+        if (c == 'R') nrenames++;
+        fails = (c == 'T' && ntemps == fail_temp_at) || (c == 'R' && nrenames == fail_rename_at);
+        if (ncalls + 1 < sizeof calls) calls[ncalls++] = c;
+    }
     pthread_mutex_unlock(&calls_lock);
+    return fails;
 }
 
 int __wrap_fsync(int fd) {
@@ -821,17 +839,58 @@ int __wrap_fsync(int fd) {
     if (len > 0) path[len] = '\0';
     bool dir = fstat(fd, &st) == 0 && S_ISDIR(st.st_mode);
     bool tmp = len > 4 && strcmp(path + len - 4, ".tmp") == 0;
-    pthread_mutex_lock(&calls_lock);
-    bool first = logging_calls && ncalls == 0;
-    pthread_mutex_unlock(&calls_lock);
-    if (first) usleep(100000);
-    log_call(dir ? 'D' : tmp ? 'T' : 'O');
+    if (log_call(dir ? 'D' : tmp ? 'T' : 'O')) return errno = EIO, -1;
     return __real_fsync(fd);
 }
 
 int __wrap_renameat(int olddirfd, const char *oldpath, int newdirfd, const char *newpath) {
-    log_call('R');
+    if (log_call('R')) return errno = EIO, -1;
     return __real_renameat(olddirfd, oldpath, newdirfd, newpath);
+}
+
+/* Watches the calls of a run in dir (its folder already made); skips the
+ * test where /proc cannot name a descriptor's file. */
+static void watch_calls(size_t temp_fails, size_t rename_fails) {
+    char path[64];
+    if (readlink("/proc/self/fd/0", path, sizeof path) < 0 && errno == ENOENT) {
+        print_message("      skipped: no /proc/self/fd to tell the files apart\n");
+        skip();
+    }
+    pthread_mutex_lock(&calls_lock);
+    ncalls = ntemps = nrenames = 0;
+    fail_temp_at = temp_fails, fail_rename_at = rename_fails;
+    handed_over = false;
+    watching = true;
+    pthread_mutex_unlock(&calls_lock);
+}
+
+static void all_handed_over(void) {
+    pthread_mutex_lock(&calls_lock);
+    handed_over = true;
+    pthread_cond_broadcast(&calls_cond);
+    pthread_mutex_unlock(&calls_lock);
+}
+
+static void stop_watching(void) {
+    pthread_mutex_lock(&calls_lock);
+    watching = false;
+    calls[ncalls] = '\0';
+    pthread_mutex_unlock(&calls_lock);
+}
+
+enum { BATCHED = 12 };
+
+/* BATCHED records handed to a store in dir (a queue of 16 takes them all
+ * without a wait); how many it took. */
+static uint32_t hand_over(store *s) {
+    char err[512] = "";
+    uint32_t handed = 0;
+    while (handed < BATCHED &&
+           store_submit(s, make_record(handed + 1, 1, false, 100, false), true, err,
+                        sizeof err) == 0)
+        handed++;
+    all_handed_over();
+    return handed;
 }
 
 /* Every file of a batch fsync'd before any is renamed (a rename between two
@@ -842,20 +901,11 @@ static void test_a_batch_is_fsynced_before_any_is_renamed(void **state) {
     char dir[128], err[512] = "";
     scratch_run(dir, "batch");
     store *s = create_run(dir);
+    watch_calls(0, 0);
     assert_int_equal(store_start(s, 16, err, sizeof err), 0);
-    pthread_mutex_lock(&calls_lock);
-    ncalls = 0;
-    logging_calls = true;
-    pthread_mutex_unlock(&calls_lock);
-    enum { SHOTS = 12 };
-    for (uint32_t shot = 1; shot <= SHOTS; shot++)
-        if (store_submit(s, make_record(shot, 1, false, 100, false), true, err, sizeof err) != 0)
-            fail_msg("shot %u: %s", shot, err);
+    assert_int_equal(hand_over(s), BATCHED);
     if (store_close(s, err, sizeof err) != 0) fail_msg("store_close: %s", err);
-    pthread_mutex_lock(&calls_lock);
-    logging_calls = false;
-    calls[ncalls] = '\0';
-    pthread_mutex_unlock(&calls_lock);
+    stop_watching();
     size_t temps = 0, renames = 0, widest = 0, batch = 0;
     for (size_t i = 0; i < ncalls; i++) {
         char c = calls[i], next = calls[i + 1];
@@ -865,15 +915,54 @@ static void test_a_batch_is_fsynced_before_any_is_renamed(void **state) {
         if (c == 'R' && ++batch > widest) widest = batch;
         if (c == 'R' && next != 'R' && next != 'D') fail_msg("renames not then synced: %s", calls);
     }
-    assert_int_equal(temps, SHOTS);
-    assert_int_equal(renames, SHOTS);
+    assert_int_equal(temps, BATCHED);
+    assert_int_equal(renames, BATCHED);
     if (widest < 2) fail_msg("no batch of two or more records: %s", calls);
     size_t n;
     json_t **lines = journal_lines(dir, &n);
-    assert_int_equal(n, SHOTS);
+    assert_int_equal(n, BATCHED);
     for (size_t i = 0; i < n; i++) check_shot_line(dir, lines[i], (int)i + 1, 1, false);
     free_lines(lines, n);
     remove_scratch(dir);
+}
+
+/* The third temporary file's fsync, or the third rename, fails (EIO), in
+ * the middle of a batch: the two records before it are in place and
+ * journalled, no temporary file is left, the error names the third and
+ * what failed, and every record after it is counted as lost. */
+static void check_failed_placing(size_t temp_fails, size_t rename_fails, const char *what) {
+    char dir[128], err[640] = "";
+    scratch_run(dir, "placing");
+    store *s = create_run(dir);
+    watch_calls(temp_fails, rename_fails);
+    assert_int_equal(store_start(s, 16, err, sizeof err), 0);
+    uint32_t handed = hand_over(s);
+    size_t lost = 0;
+    assert_int_equal(store_finish(s, &lost, err, sizeof err), -1);
+    stop_watching();
+    if (!strstr(err, "records/000003.h5 not written") || !strstr(err, what) ||
+        !strstr(err, "check the disk"))
+        fail_msg("%s: %s (calls %s)", what, err, calls);
+    size_t n;
+    json_t **lines = journal_lines(dir, &n);
+    assert_int_equal(n, 2);
+    for (size_t i = 0; i < n; i++) check_shot_line(dir, lines[i], (int)i + 1, 1, false);
+    free_lines(lines, n);
+    assert_int_equal(count_ending(dir, "records", ".h5"), 2);
+    assert_int_equal(count_tmp(dir, "records"), 0);
+    assert_int_equal(n + 1 + lost, handed);
+    print_message("      %s\n", err);
+    remove_scratch(dir);
+}
+
+static void test_a_failed_fsync_keeps_the_records_before_it(void **state) {
+    (void)state;
+    check_failed_placing(3, 0, "fsync of .000003.h5.tmp");
+}
+
+static void test_a_failed_rename_keeps_the_records_before_it(void **state) {
+    (void)state;
+    check_failed_placing(0, 3, "rename of .000003.h5.tmp");
 }
 
 /* ---- write errors ------------------------------------------------------------ */
@@ -1069,6 +1158,8 @@ int main(void) {
         cmocka_unit_test(test_two_runs_at_once_both_write_every_record),
         cmocka_unit_test(test_records_are_journalled_in_the_order_queued),
         cmocka_unit_test(test_a_batch_is_fsynced_before_any_is_renamed),
+        cmocka_unit_test(test_a_failed_fsync_keeps_the_records_before_it),
+        cmocka_unit_test(test_a_failed_rename_keeps_the_records_before_it),
         cmocka_unit_test(test_builder_yields_the_cpu_and_committer_keeps_it),
         cmocka_unit_test_setup_teardown(test_full_disk_is_reported_and_not_journalled,
                                         mount_small_tmpfs, unmount_small_tmpfs),

@@ -92,12 +92,14 @@ static int fail(char *err, size_t errlen, int rc, const char *fmt, ...) {
     return rc;
 }
 
-/* The lines held so far, written. Errors of the log are not the rig's:
- * they are ignored. */
+/* The lines held so far, written (a short write goes on from where it
+ * stopped). Errors of the log are not the rig's: they are ignored. */
 static void log_flush(drv *d) {
-    if (d->log_fd >= 0 && d->log_len) {
-        ssize_t w = write(d->log_fd, d->log_buf, d->log_len);
-        (void)w;
+    for (size_t at = 0; d->log_fd >= 0 && at < d->log_len;) {
+        ssize_t w = write(d->log_fd, d->log_buf + at, d->log_len - at);
+        if (w < 0 && errno == EINTR) continue;
+        if (w <= 0) break;
+        at += (size_t)w;
     }
     d->log_len = 0;
 }
