@@ -31,6 +31,15 @@ typedef struct {
     size_t at, len;
 } packed_chunk;
 
+/* A record's chunks, compressed before HDF5 is taken, in the order
+ * write_acquisitions hands them over (acquisition, input, chunk). */
+struct record_packing {
+    unsigned char *packed;
+    size_t packed_len, packed_room;
+    packed_chunk *chunks;
+    size_t nchunks, chunks_room;
+};
+
 /* A builder's HDF5 objects and buffers, made on its first record and kept
  * for the rest: the same string type, scalar space and event row type serve
  * every record (each made afresh was a tenth of HDF5's calls). */
@@ -40,12 +49,9 @@ struct record_imager {
     hid_t scalar;               /* the scalar dataspace of every attribute */
     hid_t event;                /* /events' row type */
     struct libdeflate_compressor *deflate;
-    /* The record's chunks, compressed before HDF5 is taken, in the order
-     * write_acquisitions hands them over (acquisition, input, chunk). */
-    unsigned char *packed;
-    size_t packed_len, packed_room;
-    packed_chunk *chunks;
-    size_t nchunks, chunks_room, next_chunk;
+    record_packing own;         /* its buffers, kept from one record to the next */
+    const record_packing *use;  /* the record's: own, or one packed ahead */
+    size_t next_chunk;          /* the next of use's chunks to hand to HDF5 */
     char err[300];              /* the first failure, with HDF5's innermost reason */
 };
 typedef struct record_imager h5w;
@@ -265,7 +271,7 @@ static void *grow(void *p, size_t *room, size_t need, size_t size) {
  * HDF5's deflate filter would have made; the last chunk padded with zeros
  * to the chunk's size, as HDF5 stores edge chunks. No HDF5 here: builders
  * compress side by side. */
-static int pack_channel(h5w *w, const store_channel *c) {
+static int pack_channel(h5w *w, record_packing *p, const store_channel *c) {
     size_t chunk = chunk_samples(c);
     size_t bound = libdeflate_zlib_compress_bound(w->deflate, chunk * sizeof(float));
     float *edge = NULL;
@@ -280,34 +286,35 @@ static int pack_channel(h5w *w, const store_channel *c) {
             memcpy(edge, from, (c->n - at) * sizeof *edge);
             from = edge;
         }
-        unsigned char *bytes = grow(w->packed, &w->packed_room, w->packed_len + bound, 1);
-        if (bytes) w->packed = bytes;
+        unsigned char *bytes = grow(p->packed, &p->packed_room, p->packed_len + bound, 1);
+        if (bytes) p->packed = bytes;
         packed_chunk *list =
-            bytes ? grow(w->chunks, &w->chunks_room, w->nchunks + 1, sizeof *list) : NULL;
-        if (list) w->chunks = list;
+            bytes ? grow(p->chunks, &p->chunks_room, p->nchunks + 1, sizeof *list) : NULL;
+        if (list) p->chunks = list;
         if (!list) {
             failed = "out of memory";
             break;
         }
         size_t len = libdeflate_zlib_compress(w->deflate, from, chunk * sizeof(float),
-                                              w->packed + w->packed_len, bound);
+                                              p->packed + p->packed_len, bound);
         if (len == 0) failed = "the compressor found no room";
-        w->chunks[w->nchunks++] = (packed_chunk){w->packed_len, len};
-        w->packed_len += len;
+        p->chunks[p->nchunks++] = (packed_chunk){p->packed_len, len};
+        p->packed_len += len;
     }
     free(edge);
     if (failed) snprintf(w->err, sizeof w->err, "%s: %s", c->input, failed);
     return failed ? -1 : 0;
 }
 
-/* Every input of the record packed, in the order HDF5 will take them. */
-static int pack_record(h5w *w, const store_record *r) {
-    w->packed_len = w->nchunks = w->next_chunk = 0;
+/* Every input of the record packed into p, in the order HDF5 will take
+ * them. */
+static int pack_record(h5w *w, record_packing *p, const store_record *r) {
+    p->packed_len = p->nchunks = 0;
     if (!w->deflate) return snprintf(w->err, sizeof w->err, "no memory for the compressor"), -1;
     for (size_t k = 0; k < r->nacquisitions; k++)
         for (size_t c = 0; c < r->acquisitions[k].nchannels; c++) {
             const store_channel *ch = &r->acquisitions[k].channels[c];
-            if (packed_here(ch) && pack_channel(w, ch) != 0) return -1;
+            if (packed_here(ch) && pack_channel(w, p, ch) != 0) return -1;
         }
     return 0;
 }
@@ -316,11 +323,11 @@ static int pack_record(h5w *w, const store_record *r) {
 static int write_chunks(h5w *w, hid_t d, const store_channel *c) {
     size_t chunk = chunk_samples(c);
     for (size_t at = 0; at < c->n; at += chunk) {
-        if (w->next_chunk == w->nchunks)        /* packed from another record: a bug */
+        if (w->next_chunk == w->use->nchunks)   /* packed from another record: a bug */
             return snprintf(w->err, sizeof w->err, "%s: chunks missing", c->input), -1;
-        const packed_chunk *p = &w->chunks[w->next_chunk++];
+        const packed_chunk *p = &w->use->chunks[w->next_chunk++];
         hsize_t offset[1] = {at};
-        if (H5Dwrite_chunk(d, H5P_DEFAULT, 0, offset, p->len, w->packed + p->at) < 0)
+        if (H5Dwrite_chunk(d, H5P_DEFAULT, 0, offset, p->len, w->use->packed + p->at) < 0)
             return h5_fail(w, c->input);
     }
     return 0;
@@ -414,6 +421,10 @@ static int build_image(h5w *w, const char *name, const store_record *r, bool fai
     snprintf(where, sizeof where, "/dev/null/%s", name);
     hid_t f = fapl < 0 ? -1 : H5Fcreate(where, H5F_ACC_TRUNC, H5P_DEFAULT, fapl);
     int rc = f < 0 ? h5_fail(w, "create") : write_contents(w, f, r, failed);
+    if (rc == 0 && w->next_chunk != w->use->nchunks) {     /* packed from another record */
+        snprintf(w->err, sizeof w->err, "chunks left over");
+        rc = -1;
+    }
     if (rc == 0 && H5Fflush(f, H5F_SCOPE_GLOBAL) < 0) rc = h5_fail(w, "flush");
     ssize_t size = rc == 0 ? H5Fget_file_image(f, NULL, 0) : -1;
     if (rc == 0 && (size <= 0 || !(*image = malloc((size_t)size)) ||
@@ -453,22 +464,42 @@ void record_imager_free(record_imager *w) {
         pthread_mutex_unlock(&hdf5_lock);
     }
     libdeflate_free_compressor(w->deflate);
-    free(w->packed);
-    free(w->chunks);
+    free(w->own.packed);
+    free(w->own.chunks);
     free(w);
 }
 
-int record_image_build(record_imager *w, const char *name, const store_record *r, bool failed,
-                       void **image, size_t *len, char *err, size_t errlen) {
+record_packing *record_pack(record_imager *w, const store_record *r) {
+    record_packing *p = calloc(1, sizeof *p);
+    if (p && pack_record(w, p, r) != 0) {
+        record_packing_free(p);
+        p = NULL;
+    }
+    return p;
+}
+
+void record_packing_free(record_packing *p) {
+    if (!p) return;
+    free(p->packed);
+    free(p->chunks);
+    free(p);
+}
+
+int record_image_build(record_imager *w, const char *name, const store_record *r,
+                       const record_packing *packed, bool failed, void **image, size_t *len,
+                       char *err, size_t errlen) {
     w->err[0] = '\0';
     *image = NULL;
     *len = 0;
-    int rc = pack_record(w, r);         /* the CPU-heavy part, side by side */
+    w->use = packed ? packed : &w->own;
+    w->next_chunk = 0;
+    int rc = packed ? 0 : pack_record(w, &w->own, r);   /* the CPU-heavy part, side by side */
     if (rc == 0) {
         pthread_mutex_lock(&hdf5_lock);
         rc = build_image(w, name, r, failed, image, len);
         pthread_mutex_unlock(&hdf5_lock);
     }
+    w->use = &w->own;                   /* never the caller's, once it is done */
     if (rc != 0) snprintf(err, errlen, "%s", w->err);
     return rc;
 }

@@ -42,7 +42,15 @@ struct store {
     pthread_cond_t work;            /* a record was queued, or stop */
     pthread_cond_t room;            /* the queue half empty, all written, or a failure */
     store_record **queue;
+    record_packing **packing;       /* each queued record's samples, if packed ahead */
     size_t capacity, head, count;
+    /* The submitter's own compressor, when the writer goes first: a
+     * submitter that finds the queue full compresses its record's samples
+     * before it waits, on a core the builders leave it while one of them
+     * waits its turn for HDF5. */
+    record_imager *ahead;
+    bool ahead_busy;
+    size_t packed_ahead;            /* records so packed, for the tests */
     /* Records built into file images, waiting for the committer: building
      * (CPU) and committing (fsync, mostly waiting for the disk) overlap.
      * Each record taken from the queue gets the next ticket, and its image
@@ -70,6 +78,7 @@ struct store {
 /* A record's file image, made by the builder for the committer. */
 typedef struct built_record {
     store_record *r;
+    record_packing *packing;        /* r's samples packed ahead, or NULL */
     void *image;
     size_t len;
     bool failed;                    /* a failed attempt's partial record */
@@ -153,7 +162,10 @@ static void store_free(store *s) {
     pthread_cond_destroy(&s->room);
     pthread_cond_destroy(&s->built);
     pthread_cond_destroy(&s->built_room);
+    for (size_t i = 0; s->packing && i < s->capacity; i++) record_packing_free(s->packing[i]);
+    free(s->packing);
     free(s->queue);
+    record_imager_free(s->ahead);
     free(s->dir);
     free(s);
 }
@@ -431,8 +443,10 @@ static void build_record(record_imager *w, built_record *b) {
     snprintf(b->tmp, sizeof b->tmp, ".%s.tmp", b->name);
     snprintf(b->rel, sizeof b->rel, "records/%s%s", b->failed ? "failed/" : "", b->name);
     char why[320] = "out of memory for its builder";
-    b->rc = w && record_image_build(w, b->name, r, b->failed, &b->image, &b->len, why,
-                                    sizeof why) == 0 ? 0 : -1;
+    b->rc = w && record_image_build(w, b->name, r, b->packing, b->failed, &b->image, &b->len,
+                                    why, sizeof why) == 0 ? 0 : -1;
+    record_packing_free(b->packing);
+    b->packing = NULL;
     if (b->rc != 0)
         snprintf(b->err, sizeof b->err, "record %s not written: it could not be built (%s)",
                  b->rel, why);
@@ -547,6 +561,13 @@ static void lower_priority(int by) {
 
 void store_test_no_memory_at(store *s, uint64_t record) { s->no_memory_at = record; }
 
+size_t store_test_packed_ahead(store *s) {
+    pthread_mutex_lock(&s->lock);
+    size_t n = s->packed_ahead;
+    pthread_mutex_unlock(&s->lock);
+    return n;
+}
+
 int store_writer_first(store *s) {
     if (s->started) return -1;      /* its builders already run niced */
     s->build_nice = 0;
@@ -565,7 +586,8 @@ static void place_built(store *s, uint64_t ticket, built_record *b) {
 /* With s->lock held: a full queue's submitter waits until no more than
  * this many records are left in it: one less than full in a run that keeps
  * time (each shot held at rest only as long as the disk needs), half of it
- * when the writer goes first (one wake-up for half a queue of shots). */
+ * when the writer goes first (one wake-up for half a queue of shots; the
+ * submitter compresses its record's samples first, and seldom waits). */
 static size_t low_water(const store *s) {
     return s->build_nice == 0 ? s->capacity / 2 : s->capacity - 1;
 }
@@ -595,6 +617,8 @@ static void *builder_main(void *arg) {
         while (s->count == 0 && !s->stopping) pthread_cond_wait(&s->work, &s->lock);
         if (s->count == 0) break;
         store_record *r = s->queue[s->head];
+        record_packing *packing = s->packing[s->head];
+        s->packing[s->head] = NULL;
         s->head = (s->head + 1) % s->capacity;
         s->count--;
         s->inflight++;
@@ -605,8 +629,10 @@ static void *builder_main(void *arg) {
         built_record *b = skip || ticket == s->no_memory_at ? NULL : calloc(1, sizeof *b);
         if (b) {
             b->r = r;
+            b->packing = packing;
             build_record(w, b);
         } else {
+            record_packing_free(packing);
             store_record_free(r);
         }
         pthread_mutex_lock(&s->lock);
@@ -713,7 +739,8 @@ int store_start(store *s, size_t capacity, char *err, size_t errlen) {
         return -1;
     }
     s->queue = calloc(capacity, sizeof *s->queue);
-    if (!s->queue) return snprintf(err, errlen, "record queue: out of memory"), -1;
+    s->packing = calloc(capacity, sizeof *s->packing);
+    if (!s->queue || !s->packing) return snprintf(err, errlen, "record queue: out of memory"), -1;
     s->capacity = capacity;
     /* The writer takes no signals: they stay with the threads that handle them. */
     sigset_t all, old;
@@ -753,6 +780,8 @@ int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen)
         store_record_free(r);
         return -1;
     }
+    record_packing *packed = NULL;
+    bool tried = false;
     pthread_mutex_lock(&s->lock);
     int rc = 1;
     for (;;) {
@@ -765,9 +794,22 @@ int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen)
             rc = report_failure(s, err, errlen);
         } else if (s->count < s->capacity) {
             s->queue[(s->head + s->count) % s->capacity] = r;
+            s->packing[(s->head + s->count) % s->capacity] = packed;
+            packed = NULL;
             s->count++;
             pthread_cond_signal(&s->work);
             rc = 0;
+        } else if (wait && s->build_nice == 0 && !tried && !s->ahead_busy) {
+            /* the writer goes first and is behind: r's samples compressed
+             * here, where the thread would only have waited */
+            tried = s->ahead_busy = true;
+            pthread_mutex_unlock(&s->lock);
+            if (!s->ahead) s->ahead = record_imager_new();
+            packed = s->ahead ? record_pack(s->ahead, r) : NULL;
+            pthread_mutex_lock(&s->lock);
+            s->ahead_busy = false;
+            s->packed_ahead += packed != NULL;
+            continue;
         } else if (wait) {
             /* until the low water mark: when the writer goes first, half the
              * queue, filled again in a row */
@@ -778,6 +820,7 @@ int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen)
         break;
     }
     pthread_mutex_unlock(&s->lock);
+    record_packing_free(packed);        /* not queued */
     if (rc < 0) store_record_free(r);
     return rc;
 }

@@ -100,9 +100,13 @@ int store_writer_first(store *s);
 /* For tests, before store_start: the builder finds no memory for the
  * record-th record handed over (from 0), as if malloc had failed. */
 void store_test_no_memory_at(store *s, uint64_t record);
+/* For tests: how many records a submitter has compressed ahead. */
+size_t store_test_packed_ahead(store *s);
 /* Hand a record to the writer (it takes ownership). When the queue is full
  * it returns 1 at once without taking it unless wait is true, in which case
- * it waits for room (for half the queue when the writer goes first).
+ * it waits for room; when the writer goes first, it first compresses the
+ * record's samples itself (for the builders), queues it at once if room has
+ * opened meanwhile, and otherwise waits for half the queue.
  * Returns 0 when queued, -1 when the writer has failed
  * (err then says why: e.g. the disk is full). */
 int store_submit(store *s, store_record *r, bool wait, char *err, size_t errlen);
@@ -136,14 +140,23 @@ void journal_time_now(char *buf, size_t n);
 /* A builder of shot records' HDF5 file images, one per thread; it keeps its
  * HDF5 types and buffers from one record to the next. NULL: out of memory. */
 typedef struct record_imager record_imager;
+typedef struct record_packing record_packing;
 record_imager *record_imager_new(void);
 void record_imager_free(record_imager *w);
 /* r as the bytes of a complete HDF5 file (run-format.md's layout; failed:
- * an attempt's partial record) in *image, malloc'd, of *len bytes. Several
+ * an attempt's partial record) in *image, malloc'd, of *len bytes; its
+ * samples from packed when not NULL (record_pack of this r). Several
  * imagers may build at once on their own threads: they compress the samples
  * side by side and take turns for HDF5. 0, or -1 with err. */
-int record_image_build(record_imager *w, const char *name, const store_record *r, bool failed,
-                       void **image, size_t *len, char *err, size_t errlen);
+int record_image_build(record_imager *w, const char *name, const store_record *r,
+                       const record_packing *packed, bool failed, void **image, size_t *len,
+                       char *err, size_t errlen);
+/* The samples of r compressed ahead of its image, by any thread with its
+ * own imager (a submitter that would otherwise wait on a full queue), to be
+ * handed to record_image_build as packed; NULL: out of memory (the
+ * builder then compresses them itself). */
+record_packing *record_pack(record_imager *w, const store_record *r);
+void record_packing_free(record_packing *p);
 
 /* ---- hashing ------------------------------------------------------------- */
 

@@ -26,6 +26,8 @@
 #include <time.h>
 #include <unistd.h>
 
+#include <hdf5.h>
+
 #include "store.h"
 
 #define PI 3.14159265358979323846
@@ -668,6 +670,79 @@ static void *start_writer_first(void *arg) {     /* no cmocka here: not its thre
     return NULL;
 }
 
+/* A writer that goes first, a queue of three, records of two chunks an
+ * input handed over back to back until the submitter, finding the queue
+ * full, has compressed the samples of some itself (at least eight, at most
+ * AHEAD_MAX records). Run on a thread of its own (it lowers its priority). */
+enum { AHEAD_MAX = 64 };
+
+typedef struct {
+    store *s;
+    int rc;
+    size_t ahead, handed;
+    char err[512];
+    store_record *records[AHEAD_MAX];
+} ahead_run;
+
+static void *run_ahead(void *arg) {     /* no cmocka here: not its thread */
+    ahead_run *a = arg;
+    a->rc = store_writer_first(a->s) | store_start(a->s, 3, a->err, sizeof a->err);
+    while (a->rc == 0 && a->handed < AHEAD_MAX &&
+           (a->handed < 8 || store_test_packed_ahead(a->s) == 0)) {
+        a->rc = store_submit(a->s, a->records[a->handed], true, a->err, sizeof a->err);
+        a->records[a->handed++] = NULL;
+    }
+    for (size_t i = 0; i < AHEAD_MAX; i++) store_record_free(a->records[i]);
+    if (a->rc == 0) a->rc = store_flush(a->s, a->err, sizeof a->err);
+    a->ahead = store_test_packed_ahead(a->s);
+    if (store_close(a->s, a->rc ? NULL : a->err, a->rc ? 0 : sizeof a->err) != 0) a->rc = -1;
+    return NULL;
+}
+
+/* One input's samples of a record file, read back with HDF5. */
+static float *read_samples(const char *file, const char *dataset, size_t n) {
+    float *x = calloc(n, sizeof *x);
+    hid_t f = H5Fopen(file, H5F_ACC_RDONLY, H5P_DEFAULT);
+    hid_t d = f >= 0 ? H5Dopen2(f, dataset, H5P_DEFAULT) : -1;
+    herr_t rc = d >= 0 && x ? H5Dread(d, H5T_NATIVE_FLOAT, H5S_ALL, H5S_ALL, H5P_DEFAULT, x) : -1;
+    if (d >= 0) H5Dclose(d);
+    if (f >= 0) H5Fclose(f);
+    if (rc < 0) fail_msg("%s: %s could not be read", file, dataset);
+    return x;
+}
+
+static void test_samples_packed_ahead_by_the_submitter_read_back_whole(void **state) {
+    (void)state;
+    char dir[128];
+    scratch_run(dir, "ahead");
+    ahead_run a = {create_run(dir), -1, 0, 0, "", {NULL}};
+    for (uint32_t i = 0; i < AHEAD_MAX; i++)
+        a.records[i] = make_record(i + 1, 1, false, SAMPLES, false);
+    pthread_t t;
+    assert_int_equal(pthread_create(&t, NULL, run_ahead, &a), 0);
+    pthread_join(t, NULL);
+    if (a.rc != 0) fail_msg("the run: %s", a.err);
+    if (a.ahead == 0) fail_msg("no record was compressed by the submitter");
+    for (uint32_t shot = 1; shot <= a.handed; shot++) {
+        store_record *want = make_record(shot, 1, false, SAMPLES, false);
+        char file[256];
+        snprintf(file, sizeof file, "%s/records/%06u.h5", dir, shot);
+        const char *names[] = {"/acquisitions/1/mag", "/acquisitions/1/ref", "/acquisitions/2/mag"};
+        const store_channel *c[] = {&want->acquisitions[0].channels[0],
+                                    &want->acquisitions[0].channels[1],
+                                    &want->acquisitions[1].channels[0]};
+        for (int k = 0; k < 3; k++) {
+            float *got = read_samples(file, names[k], c[k]->n);
+            if (memcmp(got, c[k]->samples, c[k]->n * sizeof *got) != 0)
+                fail_msg("%s %s: not the samples handed over", file, names[k]);
+            free(got);
+        }
+        store_record_free(want);
+    }
+    print_message("      %zu of %zu records compressed by the submitter\n", a.ahead, a.handed);
+    remove_scratch(dir);
+}
+
 /* The builders (two) run 10 below the caller's priority, the committer at
  * it; when the writer goes first, the caller goes down 10 instead. */
 static void test_builder_yields_the_cpu_and_committer_keeps_it(void **state) {
@@ -1161,6 +1236,7 @@ int main(void) {
         cmocka_unit_test(test_a_failed_fsync_keeps_the_records_before_it),
         cmocka_unit_test(test_a_failed_rename_keeps_the_records_before_it),
         cmocka_unit_test(test_builder_yields_the_cpu_and_committer_keeps_it),
+        cmocka_unit_test(test_samples_packed_ahead_by_the_submitter_read_back_whole),
         cmocka_unit_test_setup_teardown(test_full_disk_is_reported_and_not_journalled,
                                         mount_small_tmpfs, unmount_small_tmpfs),
         cmocka_unit_test_setup_teardown(test_file_size_limit_is_reported_and_not_journalled,
