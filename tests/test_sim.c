@@ -1077,14 +1077,20 @@ static char *slurp(const char *path) {
     return buf;
 }
 
-static void test_safe_state_ramps_every_coil_to_zero_and_lines_inactive(void **state) {
-    fixture *f = *state;
+/* The magnet plan's rig opened in virtual time, its commands logged to a
+ * fresh file f->log (removed by the teardown). */
+static drv *open_logged_magnet(fixture *f) {
     compile_magnet(f, "8e-12");
     snprintf(f->log, sizeof f->log, "/tmp/test_sim_log_XXXXXX");
     int fd = mkstemp(f->log);
     assert_true(fd >= 0);
     close(fd);
-    drv *d = open_sim(f, 0, 1, true, f->log);
+    return open_sim(f, 0, 1, true, f->log);
+}
+
+static void test_safe_state_ramps_every_coil_to_zero_and_lines_inactive(void **state) {
+    fixture *f = *state;
+    drv *d = open_logged_magnet(f);
     const plan_rig *rig = &f->p->rig;
     assert_int_equal(load_shot(f, d, 1, 1), 0);
     assert_int_equal(f->ops->set_current(d, PREPOL, 4.0, T0 + 3.05, f->err, ERRLEN), 0);
@@ -1123,12 +1129,7 @@ static void test_safe_state_ramps_every_coil_to_zero_and_lines_inactive(void **s
  * as its command is given. */
 static void test_command_log_in_virtual_time_is_written_a_shot_at_a_time(void **state) {
     fixture *f = *state;
-    compile_magnet(f, "8e-12");
-    snprintf(f->log, sizeof f->log, "/tmp/test_sim_log_XXXXXX");
-    int fd = mkstemp(f->log);
-    assert_true(fd >= 0);
-    close(fd);
-    drv *d = open_sim(f, 0, 1, true, f->log);
+    drv *d = open_logged_magnet(f);
     assert_int_equal(load_shot(f, d, 1, 1), 0);
     assert_int_equal(f->ops->set_current(d, PREPOL, 1.5, T0 + 3.05, f->err, ERRLEN), 0);
     char *log = slurp(f->log);

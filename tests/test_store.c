@@ -96,6 +96,10 @@ static int count_ending(const char *dir, const char *sub, const char *suffix) {
 /* Temporary files in dir/sub. */
 static int count_tmp(const char *dir, const char *sub) { return count_ending(dir, sub, ".tmp"); }
 
+/* The files named like records in dir/records (a temporary one ends in
+ * .tmp). */
+static size_t count_records(const char *dir) { return (size_t)count_ending(dir, "records", ".h5"); }
+
 /* A fresh folder under /tmp; dir becomes FOLDER/run (not yet created). */
 static void scratch_run(char dir[128], const char *tag) {
     snprintf(dir, 128, "/tmp/precess-%s-XXXXXX", tag);
@@ -923,8 +927,9 @@ int __wrap_renameat(int olddirfd, const char *oldpath, int newdirfd, const char 
     return __real_renameat(olddirfd, oldpath, newdirfd, newpath);
 }
 
-/* Watches the calls of a run in dir (its folder already made); skips the
- * test where /proc cannot name a descriptor's file. */
+/* Starts watching the calls, the temp_fails-th temporary file's fsync and
+ * the rename_fails-th rename to fail (0: none); skips the test where /proc
+ * cannot name a descriptor's file. */
 static void watch_calls(size_t temp_fails, size_t rename_fails) {
     char path[64];
     if (readlink("/proc/self/fd/0", path, sizeof path) < 0 && errno == ENOENT) {
@@ -1023,7 +1028,7 @@ static void check_failed_placing(size_t temp_fails, size_t rename_fails, const c
     assert_int_equal(n, 2);
     for (size_t i = 0; i < n; i++) check_shot_line(dir, lines[i], (int)i + 1, 1, false);
     free_lines(lines, n);
-    assert_int_equal(count_ending(dir, "records", ".h5"), 2);
+    assert_int_equal(count_records(dir), 2);
     assert_int_equal(count_tmp(dir, "records"), 0);
     assert_int_equal(n + 1 + lost, handed);
     print_message("      %s\n", err);
@@ -1126,10 +1131,6 @@ static void test_file_size_limit_is_reported_and_not_journalled(void **state) {
     check_write_error(dir);
     remove_scratch(dir);
 }
-
-/* The files named like records in dir/records (a temporary one ends in
- * .tmp). */
-static size_t count_records(const char *dir) { return (size_t)count_ending(dir, "records", ".h5"); }
 
 /* The builder finds no memory for the sixth record: the five before it are
  * journalled all the same (some of them waiting in the same batch as
